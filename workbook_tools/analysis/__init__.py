@@ -1,0 +1,1 @@
+"""Pure analysis engine: numpy and scipy only, nothing that knows about spreadsheets."""
