@@ -1,0 +1,1 @@
+"""The openpyxl side: read trial ranges from a workbook into plain data."""
