@@ -102,6 +102,8 @@ def read_trials(path, range_text, *, layout="auto", transposed=False, block=None
         wb.close()
         handle.close()
     _check_calculated(Path(path), grid, recalc_on_open)
+    if all(_is_blank(value) for row in grid.rows for value, _ in row):
+        grid.fail(f"The range {rng.a1} is empty. Check that the range covers the data.")
     options = dict(text_numbers=text_numbers, errors_as_missing=errors_as_missing)
     if layout == "auto":
         layout = _guess_layout(grid, transposed, block, treatment, responses, text_numbers)
@@ -369,20 +371,9 @@ def _read_wide(grid: _Grid, transposed: bool, **options) -> TrialTable:
     row_what, col_what = ("treatment", "block") if transposed else ("block", "treatment")
     row_labels = _line_labels(grid, [(i, 0) for i in range(1, grid.nrows)], row_what, across=True)
     col_labels = _line_labels(grid, [(0, j) for j in range(1, grid.ncols)], col_what, across=False)
-    blocks, treatments, values, cells, missing = [], [], [], [], []
-    for i, row_label in row_labels:
-        for j, col_label in col_labels:
-            b, t = (col_label, row_label) if transposed else (row_label, col_label)
-            value = _number(grid, i, j, **options)
-            if value is None:
-                missing.append((b, t, grid.address(i, j)))
-            else:
-                blocks.append(b)
-                treatments.append(t)
-                values.append(value)
-                cells.append(grid.address(i, j))
-    _require_values(grid, values)
-    return TrialTable(grid.rng.sheet, grid.rng, "wide", None, blocks, treatments, values, cells, missing)
+    places = [((col_label, row_label) if transposed else (row_label, col_label)) + (i, j)
+              for i, row_label in row_labels for j, col_label in col_labels]
+    return _table(grid, "wide", None, places, **options)
 
 
 def _line_labels(grid: _Grid, places, what: str, *, across: bool) -> list[tuple[int, str]]:
@@ -406,7 +397,7 @@ def _line_labels(grid: _Grid, places, what: str, *, across: bool) -> list[tuple[
 
 def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[TrialTable]:
     headers = _headers(grid)
-    found = ", ".join(repr(h) for h in headers) or "none"
+    found = ", ".join(repr(h) for h in headers.values()) or "none"
     header_row = f"{grid.address(0, 0)}:{grid.address(0, max(grid.ncols - 1, 0))}"
 
     def column(name, words, option):
@@ -436,31 +427,37 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
             if j in (b_col, t_col):
                 grid.fail(f"The column {headers[j]!r} is the block or treatment column and cannot also be "
                           "a response.", 0, j)
-    tables = []
-    for j in r_cols:
-        blocks, treatments, values, cells, missing = [], [], [], [], []
-        for i in range(1, grid.nrows):
-            used = (b_col, t_col, *r_cols)
-            if all(_is_blank(grid.value(i, k)[0]) for k in used):
-                continue  # an empty row (e.g. below the data in an oversized range)
-            b = _label(grid, i, b_col, "block label")
-            t = _label(grid, i, t_col, "treatment label")
-            for k, lab, what in ((b_col, b, "block"), (t_col, t, "treatment")):
-                if lab is None:
-                    grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
-                              "or leave the row out of the range.", i, k)
-            value = _number(grid, i, j, **options)
-            if value is None:
-                missing.append((b, t, grid.address(i, j)))
-            else:
-                blocks.append(b)
-                treatments.append(t)
-                values.append(value)
-                cells.append(grid.address(i, j))
-        _require_values(grid, values, headers[j])
-        tables.append(TrialTable(grid.rng.sheet, grid.rng, "long", headers[j],
-                                 blocks, treatments, values, cells, missing))
-    return tables
+    used = (b_col, t_col, *r_cols)
+    places = []
+    for i in range(1, grid.nrows):
+        if all(_is_blank(grid.value(i, k)[0]) for k in used):
+            continue  # an empty row (e.g. below the data in an oversized range)
+        b = _label(grid, i, b_col, "block label")
+        t = _label(grid, i, t_col, "treatment label")
+        for k, lab, what in ((b_col, b, "block"), (t_col, t, "treatment")):
+            if lab is None:
+                grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
+                          "or leave the row out of the range.", i, k)
+        places.append((b, t, i))
+    return [_table(grid, "long", headers[j], [(b, t, i, j) for b, t, i in places], **options) for j in r_cols]
+
+
+def _table(grid: _Grid, layout: str, response: str | None, places, **options) -> TrialTable:
+    """Read the value cell of each ``(block, treatment, i, j)``; blank ones become missing cells."""
+    blocks, treatments, values, cells, missing = [], [], [], [], []
+    for b, t, i, j in places:
+        value = _number(grid, i, j, **options)
+        if value is None:
+            missing.append((b, t, grid.address(i, j)))
+        else:
+            blocks.append(b)
+            treatments.append(t)
+            values.append(value)
+            cells.append(grid.address(i, j))
+    if not values:
+        what = f" for {response!r}" if response else ""
+        grid.fail(f"The range {grid.rng.a1} holds no values{what}. Check that the range covers the data.")
+    return TrialTable(grid.rng.sheet, grid.rng, layout, response, blocks, treatments, values, cells, missing)
 
 
 def _headers(grid: _Grid) -> dict[int, str]:
@@ -489,9 +486,3 @@ def _numeric(cell) -> bool:
     if isinstance(value, str):
         return bool(_NUMBER_TEXT.fullmatch(value.strip()))
     return isinstance(value, (int, float))
-
-
-def _require_values(grid: _Grid, values, response: str | None = None) -> None:
-    if not values:
-        what = f" for {response!r}" if response else ""
-        grid.fail(f"The range {grid.rng.a1} holds no values{what}. Check that the range covers the data.")
