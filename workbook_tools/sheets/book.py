@@ -1,0 +1,188 @@
+"""The headless main job: read a range, analyse each response, write result sheets.
+
+front end (cells in) -> engine -> layout -> writer (cells out); this module is
+the openpyxl front end and writer glue used by the command line and the
+headless job runner.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from openpyxl.utils.cell import coordinate_to_tuple
+
+from workbook_tools import __version__
+from workbook_tools.analysis.errors import TrialInputError
+from workbook_tools.analysis.result import CAUTIONS, SCHEMA_VERSION, BlockTrialResult
+from workbook_tools.layout import Column, Table, sheet_plans
+from workbook_tools.sheets import safety
+from workbook_tools.sheets.reader import TrialTable, read_trials
+from workbook_tools.sheets.writer import TITLE_FONT, apply_widths, sheet_name, write_sheet, write_table
+
+DEFAULT_PREFIX = "wbt-"
+READ_OPTIONS = ("layout", "transposed", "block", "treatment", "responses", "text_numbers", "errors_as_missing")
+ENGINE_OPTIONS = ("alpha", "compare", "control", "alternative", "block_model")
+
+
+@dataclass
+class ResponseAnalysis:
+    """One analysed response: where it came from, the result, and a fingerprint of its values."""
+
+    source: dict
+    result: BlockTrialResult
+    values_sha256: str
+    result_dict: dict = field(default=None, repr=False)
+
+    def as_dict(self) -> dict:
+        """The engine's ``to_dict()`` (computed once)."""
+        if self.result_dict is None:
+            self.result_dict = self.result.to_dict()
+        return self.result_dict
+
+
+def _ordered_records(table: TrialTable):
+    """Observed and missing cells in sheet order, so labels keep the sheet's order."""
+    records = [(coordinate_to_tuple(c), b, t, v) for b, t, v, c in
+               zip(table.blocks, table.treatments, table.values, table.cells)]
+    records += [(coordinate_to_tuple(c), b, t, None) for b, t, c in table.missing_cells]
+    records.sort(key=lambda record: record[0])
+    return [r[1] for r in records], [r[2] for r in records], [r[3] for r in records]
+
+
+def values_fingerprint(blocks, treatments, values) -> str:
+    """SHA-256 of the analysed (block, treatment, value) triples, in order."""
+    payload = json.dumps([[b, t, None if v is None else repr(float(v))] for b, t, v in
+                          zip(blocks, treatments, values)], separators=(",", ":"))
+    return hashlib.sha256(payload.encode("utf-8")).hexdigest()
+
+
+def analyse_book(path, range_text: str, **options) -> list[ResponseAnalysis]:
+    """Read ``range_text`` of the workbook at ``path`` and analyse every response in it.
+
+    Parameters
+    ----------
+    path : path-like
+        The input workbook; it is only read.
+    range_text : str
+        ``Sheet!B3:G9``, a defined name or a table name.
+    **options
+        Reading options (``layout``, ``transposed``, ``block``, ``treatment``,
+        ``responses``, ``text_numbers``, ``errors_as_missing``) and engine options
+        (``alpha``, ``compare``, ``control``, ``alternative``, ``block_model``).
+
+    Returns
+    -------
+    list of ResponseAnalysis
+    """
+    from workbook_tools.api import analyze_records
+
+    unknown = set(options) - set(READ_OPTIONS) - set(ENGINE_OPTIONS)
+    if unknown:
+        raise TrialInputError(f"Unknown option(s): {', '.join(sorted(unknown))}.")
+    read = {k: v for k, v in options.items() if k in READ_OPTIONS and v is not None}
+    engine = {k: v for k, v in options.items() if k in ENGINE_OPTIONS and v is not None}
+    analyses = []
+    for table in read_trials(path, range_text, **read):
+        blocks, treatments, values = _ordered_records(table)
+        try:
+            result = analyze_records(blocks, treatments, values, **engine)
+        except TrialInputError as error:
+            where = f" (response '{table.response}')" if table.response else ""
+            raise TrialInputError(error.message + where, sheet=table.sheet, cell=table.range.a1) from None
+        source = {"file": Path(path).name, "sheet": table.sheet, "range": table.range.a1,
+                  "response": table.response, "layout": table.layout}
+        analyses.append(ResponseAnalysis(source, result, values_fingerprint(blocks, treatments, values)))
+    return analyses
+
+
+def analyses_json(analyses: list[ResponseAnalysis]) -> dict:
+    """The command line's JSON: ``to_dict()`` plus ``schema`` and ``source``; several under ``results``."""
+    items = [{**a.as_dict(), "schema": SCHEMA_VERSION, "source": dict(a.source, values_sha256=a.values_sha256)}
+             for a in analyses]
+    if len(items) == 1:
+        return items[0]
+    return {"schema": SCHEMA_VERSION, "results": items}
+
+
+def _context_lines(analysis: ResponseAnalysis, stamp: str, audit_sheet: str) -> list[str]:
+    s = analysis.source
+    opts = analysis.as_dict()["options"]
+    response = f", response '{s['response']}'" if s["response"] else ""
+    options = ", ".join(f"{k} {v}" for k, v in opts.items() if v is not None)
+    return [
+        f"Data: file '{s['file']}', sheet '{s['sheet']}', range {s['range']} ({s['layout']} layout){response}.",
+        f"Options: {options}.",
+        f"Made by workbook-tools {__version__} at {stamp} UTC; details on sheet '{audit_sheet}'.",
+    ]
+
+
+def audit_table(analyses: list[ResponseAnalysis], input_name: str, stamp: str, run_options: dict) -> Table:
+    """The audit block: version, input, fingerprints, time, options, verdicts, cautions."""
+    rows = [["Tool", f"workbook-tools {__version__}"], ["Input file", input_name], ["Written (UTC)", stamp]]
+    rows += [[f"Run option: {k}", "" if v is None else str(v)] for k, v in run_options.items()]
+    for a in analyses:
+        s, d = a.source, a.as_dict()
+        label = s["response"] or s["range"]
+        rows.append([f"[{label}] source", f"'{s['sheet']}'!{s['range']} ({s['layout']})"])
+        rows.append([f"[{label}] SHA-256 of analysed values", a.values_sha256])
+        rows += [[f"[{label}] option: {k}", "" if v is None else str(v)] for k, v in d["options"].items()]
+        for name, check in d["checks"].items():
+            outcome = {True: "passed", False: "failed", None: "not available"}[check["passed"]]
+            rows.append([f"[{label}] check: {name}", f"{outcome}: {check['verdict']}"])
+        rows += [[f"[{label}] warning", w] for w in d["warnings"]]
+    rows += [["Caution", c] for c in CAUTIONS]
+    return Table("audit", "Audit record", (Column("Item", "text"), Column("Value", "text")), rows)
+
+
+def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in_place: bool = False,
+                   prefix: str = DEFAULT_PREFIX, run_options: dict | None = None) -> Path:
+    """Write the result sheets of every analysis into a copy of the workbook (or in place).
+
+    The user's own sheets are never touched; sheets this tool wrote before are
+    replaced. The file is saved atomically.
+
+    Returns
+    -------
+    pathlib.Path
+        The workbook written.
+    """
+    from workbook_tools.sheets import charts
+
+    workbook, target = safety.open_for_writing(input_path, out, in_place=in_place)
+    stamp = dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "")
+    plans = []
+    for analysis in analyses:
+        suffix = (analysis.source["response"] if len(analyses) > 1 else None)
+        plans.append((analysis, suffix, sheet_plans(analysis.as_dict())))
+    previous = set(safety.tool_sheet_names(workbook))
+    user_sheets = {ws.title for ws in workbook.worksheets} - previous
+    taken = set(user_sheets)
+    names: list[tuple] = []
+    for analysis, suffix, sheet_list in plans:
+        for plan in sheet_list:
+            name = sheet_name(prefix, plan.family, suffix, taken | {prefix + "audit"})
+            taken.add(name)
+            names.append((analysis, plan, name))
+    audit_name = sheet_name(prefix, "audit", None, user_sheets | {n for *_, n in names})
+    safety.replace_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
+    for analysis, plan, name in names:
+        ws = workbook.create_sheet(name)
+        placements = write_sheet(ws, plan, _context_lines(analysis, stamp, audit_name))
+        charts.add_result_charts(ws, plan.family, placements)
+    audit_ws = workbook.create_sheet(audit_name)
+    audit_ws.cell(1, 1, "Audit record of the analysis").font = TITLE_FONT
+    widths: dict[int, int] = {}
+    write_table(audit_ws, audit_table(analyses, Path(input_path).name, stamp, run_options or {}), 3, 1, widths)
+    apply_widths(audit_ws, widths)
+    audit_ws.column_dimensions["B"].width = 100
+    safety.record_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
+    first_result = workbook[names[0][2]]
+    workbook.active = workbook.worksheets.index(first_result)
+    for ws in workbook.worksheets:
+        ws.sheet_view.tabSelected = ws is first_result
+    safety.atomic_save(workbook, target)
+    return target

@@ -1,0 +1,129 @@
+"""Lay result tables out on openpyxl worksheets: titles, formats, widths, charts.
+
+The tables come from :mod:`workbook_tools.layout`; this module only places them.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+from openpyxl.styles import Alignment, Border, Font, PatternFill, Side
+from openpyxl.utils import get_column_letter
+
+from workbook_tools.layout import SheetPlan, Table
+
+TITLE_FONT = Font(bold=True, size=14)
+TABLE_TITLE_FONT = Font(bold=True, size=11)
+HEADER_FONT = Font(bold=True)
+HEADER_FILL = PatternFill("solid", fgColor="E4EAF1")
+HEADER_BORDER = Border(bottom=Side(style="thin", color="7F8C99"))
+NOTE_FONT = Font(italic=True, color="555555")
+WRAP = Alignment(wrap_text=True, vertical="top")
+LONG_TEXT = 60      # characters: wider text columns wrap instead of widening
+MAX_SHEET_NAME = 31
+FORBIDDEN = set('[]:*?/\\')
+
+
+@dataclass(frozen=True)
+class Placement:
+    """Where a table landed: its header row, data rows and first column."""
+
+    header_row: int
+    first_row: int
+    last_row: int
+    first_col: int
+
+    def col(self, index: int) -> int:
+        """Sheet column number of the table's column ``index`` (0-based)."""
+        return self.first_col + index
+
+
+def sheet_name(prefix: str, family: str, suffix: str | None, taken: set[str]) -> str:
+    """A valid, unused sheet name ``prefix + family [+ ' ' + suffix]`` (at most 31 characters)."""
+    base = f"{prefix}{family}"
+    if suffix:
+        clean = "".join("_" if ch in FORBIDDEN else ch for ch in suffix).strip("'") or "x"
+        base = f"{base} {clean}"
+    base = base[:MAX_SHEET_NAME]
+    name, n = base, 2
+    while name.lower() in {t.lower() for t in taken}:
+        tail = f" ({n})"
+        name = base[: MAX_SHEET_NAME - len(tail)] + tail
+        n += 1
+    return name
+
+
+def _shown_length(value) -> int:
+    text = f"{value:.6g}" if isinstance(value, float) else str(value)
+    return max((len(part) for part in text.split("\n")), default=0)
+
+
+def write_table(ws, table: Table, top: int, left: int, widths: dict[int, int]) -> tuple[Placement, int]:
+    """Write one titled table with its header, number formats and note.
+
+    Returns the placement and the last row used; ``widths`` collects, per column,
+    the longest text the table shows there.
+    """
+    ws.cell(top, left, table.title).font = TABLE_TITLE_FONT
+    header_row = top + 1
+    for j, header in enumerate(table.headers):
+        cell = ws.cell(header_row, left + j, header)
+        cell.font, cell.fill, cell.border = HEADER_FONT, HEADER_FILL, HEADER_BORDER
+        cell.alignment = Alignment(wrap_text=True, vertical="bottom")
+        widths[left + j] = max(widths.get(left + j, 0), min(len(header), 18))
+    formats = table.number_formats()
+    row = header_row
+    for row_values in table.rows:
+        row += 1
+        for j, value in enumerate(row_values):
+            cell = ws.cell(row, left + j, value)
+            if isinstance(value, (int, float)) and not isinstance(value, bool):
+                cell.number_format = formats[j]
+            elif isinstance(value, str) and len(value) > LONG_TEXT:
+                cell.alignment = WRAP
+            if value is not None:
+                widths[left + j] = max(widths.get(left + j, 0), min(_shown_length(value), LONG_TEXT))
+    last = row
+    if table.note:
+        ws.cell(last + 1, left, table.note).font = NOTE_FONT
+    placement = Placement(header_row, header_row + 1, last if table.rows else header_row, left)
+    return placement, last + (1 if table.note else 0)
+
+
+def apply_widths(ws, widths: dict[int, int], min_width: float = 8.0) -> None:
+    """Set column widths from the longest text each column shows."""
+    for col, width in widths.items():
+        ws.column_dimensions[get_column_letter(col)].width = max(min_width, width + 2)
+
+
+def write_sheet(ws, plan: SheetPlan, context_lines: list[str]) -> dict[str, Placement]:
+    """Fill a new worksheet with a plan's title, context lines and tables.
+
+    Returns the placement of every table by key, for charts.
+    """
+    ws.cell(1, 1, plan.title).font = TITLE_FONT
+    row = 2
+    for line in context_lines:
+        ws.cell(row, 1, line).font = NOTE_FONT
+        row += 1
+    ws.freeze_panes = ws.cell(row, 1)
+    top = row + 1
+    placements: dict[str, Placement] = {}
+    side_by_side = {"qq", "qq_line"}
+    side_col = None
+    side_top = top
+    widths: dict[int, int] = {}
+    for table in plan.tables:
+        if table.key in side_by_side and side_col is not None:
+            placement, end = write_table(ws, table, side_top, side_col, widths)
+            side_top = end + 2
+        else:
+            placement, end = write_table(ws, table, top, 1, widths)
+            top = end + 2
+            if table.key == "residuals":
+                side_col = len(table.columns) + 2
+                side_top = placement.header_row - 1
+                ws.freeze_panes = ws.cell(placement.first_row, 1)
+        placements[table.key] = placement
+    apply_widths(ws, widths)
+    return placements
