@@ -290,9 +290,20 @@ def _save_failure(exc: BaseException, target: Path) -> TrialInputError:
 
 
 def atomic_save(workbook, target_path) -> None:
-    """Save ``workbook`` to ``target_path`` so that the target is either the old file or the whole new one.
+    """Save an openpyxl ``workbook`` atomically (see :func:`atomic_write`)."""
+    atomic_write(target_path, workbook.save)
 
-    The workbook is written to a temporary file in the target's folder, flushed
+
+def atomic_write_text(target_path, text: str) -> None:
+    """Write a UTF-8 text file atomically (see :func:`atomic_write`)."""
+    atomic_write(target_path, lambda name: Path(name).write_text(text, encoding="utf-8"))
+
+
+def atomic_write(target_path, write_to) -> None:
+    """Write a file so that the target is either the old file or the whole new one.
+
+    ``write_to(temporary_path)`` writes the content to a temporary file in the
+    target's folder; the file is flushed
     and synced to disk, given the old file's permissions (or the usual ones for
     a new file), then moved over the target with ``os.replace``.
 
@@ -309,7 +320,7 @@ def atomic_save(workbook, target_path) -> None:
         with tempfile.NamedTemporaryFile(dir=target.parent, prefix=f".{target.stem}-", suffix=target.suffix + ".tmp",
                                          delete=False) as handle:
             temp_name = handle.name
-        workbook.save(temp_name)
+        write_to(temp_name)
         with open(temp_name, "rb+") as written:
             written.flush()
             os.fsync(written.fileno())
