@@ -140,9 +140,9 @@ def efficiency_table(result: dict) -> Table:
         ["Relative efficiency (ratio of error mean squares)", e["relative_uncorrected"]],
         ["Error df with blocks", e["error_df_blocked"]],
         ["Error df without blocks", e["error_df_unblocked"]],
-        ["Reading", reading],
     ]
-    return Table("efficiency", "What blocking gained", (Column("Figure", "text"), Column("Value", "ratio")), rows)
+    return Table("efficiency", "What blocking gained", (Column("Figure", "text"), Column("Value", "ratio")), rows,
+                 reading)
 
 
 def means_table(result: dict) -> Table:
@@ -152,8 +152,9 @@ def means_table(result: dict) -> Table:
     level = f"{100 * (1 - alpha):g}%"
     columns = (Column("Treatment", "text"), Column("n", "count"), Column("Mean of observations"),
                Column("Adjusted mean"), Column("Standard error"), Column(f"{level} CI low"),
-               Column(f"{level} CI high"), Column("Group", "text"))
+               Column(f"{level} CI high"), Column("CI half-width"), Column("Group", "text"))
     rows = [[m["treatment"], m["n"], m["mean"], m["adjusted_mean"], m["se"], m["ci_low"], m["ci_high"],
+             None if m["ci_high"] is None else m["ci_high"] - m["adjusted_mean"],
              groups.get(m["treatment"], "")] for m in result["means"]]
     note = ("Adjusted means are least-squares means averaged over all blocks; they equal the plain means when "
             "every block holds every treatment equally often.")

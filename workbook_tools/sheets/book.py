@@ -21,6 +21,7 @@ from workbook_tools.analysis.result import CAUTIONS, SCHEMA_VERSION, BlockTrialR
 from workbook_tools.layout import Column, Table, sheet_plans
 from workbook_tools.sheets import safety
 from workbook_tools.sheets.reader import TrialTable, read_trials
+from workbook_tools.sheets.result_charts import add_result_charts
 from workbook_tools.sheets.writer import TITLE_FONT, apply_widths, sheet_name, write_sheet, write_table
 
 DEFAULT_PREFIX = "wbt-"
@@ -150,8 +151,6 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     pathlib.Path
         The workbook written.
     """
-    from workbook_tools.sheets import charts
-
     workbook, target = safety.open_for_writing(input_path, out, in_place=in_place)
     stamp = dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "")
     plans = []
@@ -172,7 +171,7 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     for analysis, plan, name in names:
         ws = workbook.create_sheet(name)
         placements = write_sheet(ws, plan, _context_lines(analysis, stamp, audit_name))
-        charts.add_result_charts(ws, plan.family, placements)
+        add_result_charts(ws, plan.family, placements)
     audit_ws = workbook.create_sheet(audit_name)
     audit_ws.cell(1, 1, "Audit record of the analysis").font = TITLE_FONT
     widths: dict[int, int] = {}

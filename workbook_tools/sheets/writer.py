@@ -19,7 +19,9 @@ HEADER_FILL = PatternFill("solid", fgColor="E4EAF1")
 HEADER_BORDER = Border(bottom=Side(style="thin", color="7F8C99"))
 NOTE_FONT = Font(italic=True, color="555555")
 WRAP = Alignment(wrap_text=True, vertical="top")
-LONG_TEXT = 60      # characters: wider text columns wrap instead of widening
+LONG_TEXT = 60      # characters: the widest a last (verdict) column grows before wrapping
+SHORT_TEXT = 28     # characters: longer text in an inner column wraps instead of widening it
+LABEL_TEXT = 48     # characters: row labels (first column) are shown in full up to this
 MAX_SHEET_NAME = 31
 FORBIDDEN = set('[]:*?/\\')
 
@@ -58,6 +60,13 @@ def _shown_length(value) -> int:
     return max((len(part) for part in text.split("\n")), default=0)
 
 
+def _width_limit(j: int, n_columns: int) -> int:
+    """Widest a column grows: row labels in full, a last (verdict) column wide, inner columns narrow."""
+    if j == 0:
+        return LABEL_TEXT
+    return LONG_TEXT if j == n_columns - 1 else SHORT_TEXT
+
+
 def write_table(ws, table: Table, top: int, left: int, widths: dict[int, int]) -> tuple[Placement, int]:
     """Write one titled table with its header, number formats and note.
 
@@ -77,12 +86,17 @@ def write_table(ws, table: Table, top: int, left: int, widths: dict[int, int]) -
         row += 1
         for j, value in enumerate(row_values):
             cell = ws.cell(row, left + j, value)
-            if isinstance(value, (int, float)) and not isinstance(value, bool):
+            if isinstance(value, int) and not isinstance(value, bool) and table.columns[j].kind != "p":
+                cell.number_format = "0"
+            elif isinstance(value, float):
                 cell.number_format = formats[j]
-            elif isinstance(value, str) and len(value) > LONG_TEXT:
+            if value is None:
+                continue
+            limit = _width_limit(j, len(table.columns))
+            shown = _shown_length(value)
+            if isinstance(value, str) and shown > limit:
                 cell.alignment = WRAP
-            if value is not None:
-                widths[left + j] = max(widths.get(left + j, 0), min(_shown_length(value), LONG_TEXT))
+            widths[left + j] = max(widths.get(left + j, 0), min(shown, limit))
     last = row
     if table.note:
         ws.cell(last + 1, left, table.note).font = NOTE_FONT
@@ -126,4 +140,13 @@ def write_sheet(ws, plan: SheetPlan, context_lines: list[str]) -> dict[str, Plac
                 ws.freeze_panes = ws.cell(placement.first_row, 1)
         placements[table.key] = placement
     apply_widths(ws, widths)
+    fit_to_page_width(ws)
     return placements
+
+
+def fit_to_page_width(ws) -> None:
+    """Print (and convert to PDF) one page wide, landscape, as many pages tall as needed."""
+    ws.page_setup.orientation = "landscape"
+    ws.sheet_properties.pageSetUpPr.fitToPage = True
+    ws.page_setup.fitToWidth = 1
+    ws.page_setup.fitToHeight = 0
