@@ -1,0 +1,461 @@
+"""Checks of the assumptions behind a blocked ANOVA, Q-Q plot points and the Friedman test.
+
+Every function takes plain numpy arrays and returns a small result object whose
+``to_dict()`` is JSON-safe (plain ``float``/``int``/``str``/``None``, never NaN or inf).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy import stats
+
+from workbook_tools.analysis.errors import TrialInputError
+
+SHAPIRO_MAX_N = 5000
+"""Largest sample for which Shapiro-Wilk p-values are trusted (scipy's documentation)."""
+
+
+def _plain(value):
+    """Turn numpy scalars, tuples and dicts into JSON-safe Python values (NaN/inf -> None)."""
+    if value is None or isinstance(value, (str, bool)):
+        return value
+    if isinstance(value, (np.bool_,)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return float(value) if math.isfinite(value) else None
+    if isinstance(value, dict):
+        return {str(key): _plain(item) for key, item in value.items()}
+    if isinstance(value, (tuple, list, np.ndarray)):
+        return [_plain(item) for item in value]
+    raise TypeError(f"cannot make {type(value).__name__} JSON-safe")
+
+
+def _p_text(p: float) -> str:
+    """A p-value as a lab manager reads it: ``p = 0.012`` or ``p < 0.0001``."""
+    return "p < 0.0001" if p < 0.0001 else f"p = {p:.2g}" if p < 0.001 else f"p = {p:.3g}"
+
+
+@dataclass(frozen=True)
+class CheckOutcome:
+    """The outcome of one assumption check.
+
+    Attributes
+    ----------
+    name : str
+        ``"normality"``, ``"equal_variance"`` or ``"additivity"``.
+    method : str
+        The test used, in words.
+    statistic, p : float or None
+        Test statistic and p-value; None when the test is not available.
+    df : tuple or None
+        Degrees of freedom where the statistic has them, e.g. ``(1, 7)``.
+    passed : bool or None
+        True: no evidence against the assumption at the chosen level; False: evidence
+        against it; None: the check could not be made (the verdict says why).
+    verdict : str
+        One plain sentence: what was found and what it means.
+    extra : dict or None
+        Further figures of the test (e.g. sums of squares).
+    """
+
+    name: str
+    method: str
+    statistic: float | None
+    p: float | None
+    df: tuple | None
+    passed: bool | None
+    verdict: str
+    extra: dict | None = None
+
+    def to_dict(self) -> dict:
+        """JSON-safe dictionary of every field (NaN and inf become None)."""
+        return {
+            "name": self.name,
+            "method": self.method,
+            "statistic": _plain(self.statistic),
+            "p": _plain(self.p),
+            "df": _plain(self.df),
+            "passed": self.passed,
+            "verdict": self.verdict,
+            "extra": _plain(self.extra),
+        }
+
+
+def _not_available(name: str, method: str, why: str, extra: dict | None = None) -> CheckOutcome:
+    return CheckOutcome(name, method, None, None, None, None, f"Not available: {why}", extra)
+
+
+def _finite_residuals(residuals) -> np.ndarray:
+    values = np.asarray(residuals, dtype=float).ravel()
+    return values[np.isfinite(values)]
+
+
+def normality_check(residuals, alpha: float = 0.05, *, zero_tolerance: float = 0.0) -> CheckOutcome:
+    """Test whether the residuals look like a sample from a normal distribution.
+
+    Shapiro-Wilk for 3 to 5000 residuals. Above 5000, Shapiro-Wilk p-values are not
+    reliable (scipy's documentation says so), and the D'Agostino-Pearson K² omnibus test of
+    skewness and kurtosis, which is valid at that size, is used instead. With very many
+    residuals even tiny, harmless departures become "significant": look at the Q-Q plot
+    before acting on a small p-value.
+
+    Parameters
+    ----------
+    residuals : array_like
+        Residuals of the fit; NaN entries (missing cells) are ignored.
+    alpha : float
+        Significance level.
+    zero_tolerance : float
+        Residuals all within this distance of zero count as a perfect fit (give, for
+        example, 1e-10 times the scale of the response to absorb rounding).
+
+    Returns
+    -------
+    CheckOutcome
+        ``passed`` is None when there are fewer than 3 residuals or they are all equal.
+
+    References
+    ----------
+    Shapiro, S. S. and Wilk, M. B. (1965). An analysis of variance test for normality
+    (complete samples). Biometrika 52:591-611.
+    D'Agostino, R. and Pearson, E. S. (1973). Tests for departure from normality.
+    Biometrika 60:613-622.
+    """
+    values = _finite_residuals(residuals)
+    n = values.size
+    large = n > SHAPIRO_MAX_N
+    method = ("D'Agostino-Pearson K2 (used above 5000 residuals, where Shapiro-Wilk "
+              "p-values are unreliable)") if large else "Shapiro-Wilk"
+    if n < 3:
+        return _not_available("normality", method,
+                              f"at least 3 residuals are needed and there are {n}.")
+    if np.all(np.abs(values) <= zero_tolerance) or np.ptp(values) == 0:
+        return _not_available("normality", method,
+                              "the residuals are all equal (the model fits the data exactly), "
+                              "so there is no scatter whose shape could be judged.")
+    result = stats.normaltest(values) if large else stats.shapiro(values)
+    statistic, p = float(result.statistic), float(result.pvalue)
+    passed = p >= alpha
+    if passed:
+        verdict = (f"No clear departure from a normal distribution ({_p_text(p)}); the F test "
+                   "and the comparisons can be used as they are.")
+    else:
+        verdict = (f"The residuals depart from a normal distribution ({_p_text(p)}), so the F "
+                   "test and the comparisons may be unreliable: look at the Q-Q plot, and "
+                   "consider transforming the response or using the rank-based Friedman test.")
+    return CheckOutcome("normality", method, statistic, p, None, passed, verdict)
+
+
+def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: float = 0.05,
+                         *, zero_tolerance: float = 0.0) -> CheckOutcome:
+    """Test whether the residuals have the same spread in every treatment.
+
+    Brown-Forsythe test: Levene's one-way ANOVA of absolute deviations, with deviations
+    taken from each group's median, which keeps the test valid for skewed residuals.
+    Treatments with fewer than 2 residuals are left out. With exactly 2 residuals per
+    treatment both deviations from the median are equal, so the test has no
+    within-treatment variation and is reported as not available.
+
+    Parameters
+    ----------
+    residuals : array_like
+        Residuals of the fit; NaN entries (missing cells) are ignored.
+    treatment_index : array_like of int
+        Treatment number (0 .. n_treatments - 1) of each residual.
+    n_treatments : int
+        Number of treatments.
+    alpha : float
+        Significance level.
+    zero_tolerance : float
+        Absolute deviations at or below this count as zero (rounding of a perfect fit).
+
+    Returns
+    -------
+    CheckOutcome
+        ``df`` is (groups - 1, residuals - groups).
+
+    References
+    ----------
+    Levene, H. (1960). Robust tests for equality of variances. In Olkin, I. (ed.),
+    Contributions to Probability and Statistics, Stanford University Press, 278-292.
+    Brown, M. B. and Forsythe, A. B. (1974). Robust tests for the equality of variances.
+    J. Amer. Statist. Assoc. 69:364-367.
+    """
+    name, method = "equal_variance", "Brown-Forsythe (Levene, median-centred)"
+    values = np.asarray(residuals, dtype=float).ravel()
+    index = np.asarray(treatment_index).ravel()
+    if index.shape != values.shape:
+        raise TrialInputError("Each residual needs exactly one treatment number.")
+    keep = np.isfinite(values)
+    values, index = values[keep], index[keep]
+    groups = [values[index == k] for k in range(n_treatments)]
+    dropped = sum(1 for g in groups if g.size < 2)
+    groups = [g for g in groups if g.size >= 2]
+    note = (f" ({dropped} treatment{'s' if dropped != 1 else ''} with fewer than 2 residuals "
+            "left out)") if dropped else ""
+    if len(groups) < 2:
+        return _not_available(name, method, "at least two treatments with two or more "
+                              f"residuals each are needed{note}.")
+    deviations = [np.abs(g - np.median(g)) for g in groups]
+    deviations = [np.where(d <= zero_tolerance, 0.0, d) for d in deviations]
+    total = sum(float(np.sum(d * d)) for d in deviations)
+    within = sum(float(np.sum((d - d.mean()) ** 2)) for d in deviations)
+    if total == 0.0 or within <= 1e-24 * total:
+        return _not_available(name, method, "the distances from each treatment's median do "
+                              "not vary within treatments (for instance with only two "
+                              f"residuals per treatment), so spreads cannot be compared{note}.")
+    result = stats.levene(*groups, center="median")
+    statistic, p = float(result.statistic), float(result.pvalue)
+    df = (len(groups) - 1, sum(g.size for g in groups) - len(groups))
+    passed = p >= alpha
+    if passed:
+        verdict = (f"No clear difference in spread between treatments ({_p_text(p)}){note}; "
+                   "one pooled error variance is reasonable.")
+    else:
+        verdict = (f"The spread of the residuals differs between treatments ({_p_text(p)})"
+                   f"{note}, so the pooled error and the comparisons may be unreliable: "
+                   "plot residuals against fitted values and consider a transformation "
+                   "(often a log when spread grows with the mean).")
+    return CheckOutcome(name, method, statistic, p, df, passed, verdict)
+
+
+def additivity_check(residuals, fitted, residualize: Callable[[np.ndarray], np.ndarray],
+                     error_ss: float, error_df: int, alpha: float = 0.05) -> CheckOutcome:
+    """Tukey's one-degree-of-freedom test for non-additivity of blocks and treatments.
+
+    General regression form, valid for unbalanced data: ``z = (fitted - mean(fitted))**2``
+    is residualized against the additive block + treatment model, ``z_r = residualize(z)``,
+    and ``SS_nonadd = (residuals . z_r)**2 / (z_r . z_r)`` is tested against the remaining
+    error, ``F = SS_nonadd / ((error_ss - SS_nonadd) / (error_df - 1))`` on
+    ``(1, error_df - 1)`` df. Centring the fitted values first only improves rounding: the
+    two squares differ by ``-2 c fitted + c**2``, a combination of the fitted values and
+    the constant, which lies in the additive model space and is removed by residualizing.
+
+    Parameters
+    ----------
+    residuals, fitted : array_like
+        Residuals and fitted values of the additive fit, one per observation used.
+    residualize : callable
+        Returns the residual of a vector (same order) after projecting out the additive
+        block + treatment model.
+    error_ss : float
+        Error sum of squares of the additive fit.
+    error_df : int
+        Its degrees of freedom.
+    alpha : float
+        Significance level.
+
+    Returns
+    -------
+    CheckOutcome
+        ``extra`` holds ``ss_nonadditivity``, ``ss_remainder`` and ``slope`` (regression
+        coefficient of the residuals on ``z_r``).
+
+    References
+    ----------
+    Tukey, J. W. (1949). One degree of freedom for non-additivity. Biometrics 5:232-242.
+    """
+    name, method = "additivity", "Tukey one-degree-of-freedom"
+    r = np.asarray(residuals, dtype=float).ravel()
+    f = np.asarray(fitted, dtype=float).ravel()
+    if r.shape != f.shape:
+        raise TrialInputError("Residuals and fitted values must have the same length.")
+    if error_df < 2:
+        return _not_available(name, method, "at least 2 error degrees of freedom are needed "
+                              f"and the fit leaves {error_df}.")
+    z = (f - f.mean()) ** 2
+    z_r = np.asarray(residualize(z), dtype=float).ravel()
+    zz, zrzr = float(z @ z), float(z_r @ z_r)
+    if zz == 0.0 or zrzr < 1e-20 * zz:
+        return _not_available(name, method, "the fitted values have no curvature left to test "
+                              "once block and treatment effects are taken out.")
+    cross = float(r @ z_r)
+    slope = cross / zrzr
+    ss_nonadd = cross * cross / zrzr
+    error_ss = float(error_ss)
+    ss_remainder = max(error_ss - ss_nonadd, 0.0)
+    tiny = 1e-12 * max(error_ss, float(r @ r))
+    extra = {"ss_nonadditivity": ss_nonadd, "ss_remainder": ss_remainder, "slope": slope}
+    if error_ss <= tiny:
+        return _not_available(name, method, "the additive model fits the data exactly, so "
+                              "there is no error left to test against.", extra)
+    if ss_remainder <= tiny:
+        verdict = ("Not available: all of the error is explained by non-additivity, so there "
+                   "is nothing left to test it against; judge the interaction plot instead.")
+        return CheckOutcome(name, method, None, None, (1, error_df - 1), None, verdict, extra)
+    statistic = ss_nonadd / (ss_remainder / (error_df - 1))
+    p = float(stats.f.sf(statistic, 1, error_df - 1))
+    passed = p >= alpha
+    if passed:
+        verdict = (f"No clear sign that treatment differences change with the block level "
+                   f"({_p_text(p)}); the additive block model is reasonable.")
+    else:
+        verdict = (f"The treatment differences seem to change with the block level, for "
+                   f"instance proportional effects ({_p_text(p)}), so the F test may be "
+                   "unreliable: consider a log transform of the response.")
+    return CheckOutcome(name, method, statistic, p, (1, error_df - 1), passed, verdict, extra)
+
+
+def qq_points(standardized_residuals) -> dict:
+    """Points of a normal Q-Q plot.
+
+    Parameters
+    ----------
+    standardized_residuals : array_like
+        Residuals on a common scale; NaN entries are left out.
+
+    Returns
+    -------
+    dict
+        ``theoretical`` (normal quantiles at Blom's plotting positions
+        ``(i - 3/8) / (n + 1/4)``), ``sample`` (the residuals sorted ascending), ``order``
+        (indices into the input such that ``input[order] == sample``) and
+        ``plotting_position`` (the formula, as text).
+
+    References
+    ----------
+    Blom, G. (1958). Statistical Estimates and Transformed Beta-Variables. Wiley, New York.
+    """
+    values = np.asarray(standardized_residuals, dtype=float).ravel()
+    finite = np.flatnonzero(np.isfinite(values))
+    order = finite[np.argsort(values[finite], kind="stable")]
+    n = order.size
+    positions = (np.arange(1, n + 1) - 0.375) / (n + 0.25)
+    return {
+        "theoretical": stats.norm.ppf(positions),
+        "sample": values[order],
+        "order": order,
+        "plotting_position": "Blom (i - 3/8)/(n + 1/4)",
+    }
+
+
+def reference_line(theoretical, sample) -> tuple[float, float]:
+    """Intercept and slope of the Q-Q reference line through the first and third quartiles.
+
+    Drawing the line through the quartiles of both axes, rather than fitting it, is common
+    practice: the tails, where departures show, do not pull the line. When the quartiles
+    cannot define a line (fewer than two distinct theoretical points), the identity line
+    ``(0.0, 1.0)`` of standardized residuals is returned.
+
+    Parameters
+    ----------
+    theoretical, sample : array_like
+        The x and y coordinates of the Q-Q points, as from ``qq_points``.
+
+    Returns
+    -------
+    tuple of float
+        ``(intercept, slope)``.
+    """
+    x = np.asarray(theoretical, dtype=float).ravel()
+    y = np.asarray(sample, dtype=float).ravel()
+    if x.size < 2 or x.size != y.size:
+        return 0.0, 1.0
+    x1, x3 = np.quantile(x, [0.25, 0.75])
+    y1, y3 = np.quantile(y, [0.25, 0.75])
+    if not x3 > x1:
+        return 0.0, 1.0
+    slope = (y3 - y1) / (x3 - x1)
+    return float(y1 - slope * x1), float(slope)
+
+
+@dataclass(frozen=True)
+class FriedmanOutcome:
+    """The Friedman rank test of treatments within blocks.
+
+    Attributes
+    ----------
+    statistic : float or None
+        Tie-corrected chi-square statistic; None when not available.
+    df : int
+        Degrees of freedom, treatments - 1.
+    p : float or None
+        Upper-tail chi-square p-value.
+    kendall_w : float or None
+        Kendall's coefficient of concordance, ``statistic / (blocks * (treatments - 1))``.
+    verdict : str
+        One plain sentence.
+    method : str
+        The test, in words.
+    """
+
+    statistic: float | None
+    df: int
+    p: float | None
+    kendall_w: float | None
+    verdict: str
+    method: str
+
+    def to_dict(self) -> dict:
+        """JSON-safe dictionary of every field (NaN and inf become None)."""
+        return {key: _plain(getattr(self, key))
+                for key in ("statistic", "df", "p", "kendall_w", "verdict", "method")}
+
+
+def friedman_test(cell_values, alpha: float = 0.05) -> FriedmanOutcome:
+    """Friedman's rank test that treatments do not differ, ranking within each block.
+
+    Values are ranked within each block (average ranks for ties). With ``R_j`` the rank sum
+    of treatment j, ``b`` blocks and ``t`` treatments, the tie-corrected statistic is::
+
+        chi2 = (t - 1) * sum_j (R_j - b (t + 1) / 2)**2 / sum_ij (r_ij - (t + 1) / 2)**2
+
+    which equals the usual ``12 sum_j (R_j - b(t+1)/2)**2 / (b t (t+1))`` divided by the
+    tie correction ``1 - sum(tau**3 - tau) / (b t (t**2 - 1))`` (tau: sizes of tied groups)
+    and is referred to chi-square on ``t - 1`` df. Kendall's W is ``chi2 / (b (t - 1))``
+    with the same tie-corrected chi2, i.e.
+    ``W = sum_j (R_j - b(t+1)/2)**2 / (b * sum_ij (r_ij - (t+1)/2)**2)``.
+
+    Parameters
+    ----------
+    cell_values : array_like, shape (blocks, treatments)
+        One value per cell (cell means when cells are replicated), no missing values.
+        Ties are exact equalities: round cell means first if rounding noise could split them.
+    alpha : float
+        Significance level for the verdict.
+
+    Returns
+    -------
+    FriedmanOutcome
+
+    References
+    ----------
+    Friedman, M. (1937). The use of ranks to avoid the assumption of normality implicit in
+    the analysis of variance. J. Amer. Statist. Assoc. 32:675-701.
+    Kendall, M. G. and Babington Smith, B. (1939). The problem of m rankings. Ann. Math.
+    Statist. 10:275-287.
+    Hollander, M. and Wolfe, D. A. (1973). Nonparametric Statistical Methods. Wiley, New York.
+    """
+    method = "Friedman rank test (tie-corrected)"
+    values = np.asarray(cell_values, dtype=float)
+    if values.ndim != 2 or values.shape[0] < 2 or values.shape[1] < 2:
+        raise TrialInputError("The Friedman test needs at least 2 blocks and 2 treatments.")
+    if not np.all(np.isfinite(values)):
+        raise TrialInputError("The Friedman test needs a value in every cell.")
+    b, t = values.shape
+    df = t - 1
+    centred = stats.rankdata(values, axis=1) - (t + 1) / 2.0
+    rank_spread = float(np.sum(centred * centred))
+    if rank_spread == 0.0:
+        return FriedmanOutcome(None, df, None, None, "Not available: every block has tied "
+                               "values, so the treatments cannot be ranked.", method)
+    rank_sums = centred.sum(axis=0)
+    treatment_spread = float(rank_sums @ rank_sums)
+    statistic = df * treatment_spread / rank_spread
+    p = float(stats.chi2.sf(statistic, df))
+    w = treatment_spread / (b * rank_spread)
+    figures = f"chi-square = {statistic:.4g} on {df} df, {_p_text(p)}, Kendall's W = {w:.2f}"
+    if p < alpha:
+        verdict = (f"Treatments rank differently within blocks ({figures}): at least one "
+                   "tends to come out higher or lower; this test does not rely on normal "
+                   "residuals.")
+    else:
+        verdict = (f"No clear difference in how treatments rank within blocks ({figures}); "
+                   "this test does not rely on normal residuals.")
+    return FriedmanOutcome(statistic, df, p, w, verdict, method)
