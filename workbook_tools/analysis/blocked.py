@@ -122,10 +122,11 @@ def analyze_design(
             "(possible outliers): check them against the lab records before acting on the result."
         )
 
+    rounding = 64.0 * np.finfo(float).eps * float(np.max(np.abs(design.values)))
     checks = {
-        "normality": assumption_checks.normality_check(residuals, alpha=alpha),
+        "normality": assumption_checks.normality_check(residuals, alpha=alpha, zero_tolerance=rounding),
         "equal_variance": assumption_checks.equal_variance_check(
-            residuals, design.treatment_index, design.n_treatments, alpha=alpha),
+            residuals, design.treatment_index, design.n_treatments, alpha=alpha, zero_tolerance=rounding),
     }
     if cells is None and design.one_per_cell_at_most:
         checks["additivity"] = assumption_checks.additivity_check(
