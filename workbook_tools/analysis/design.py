@@ -133,9 +133,11 @@ def design_from_grid(values, blocks, treatments) -> BlockDesign:
     -------
     BlockDesign
     """
-    rows = [list(row) for row in values]
     block_labels = _unique_labels(blocks, "block")
     treatment_labels = _unique_labels(treatments, "treatment")
+    if isinstance(values, np.ndarray) and values.dtype.kind in "fiu":
+        return _from_numeric_grid(values, block_labels, treatment_labels)
+    rows = [list(row) for row in values]
     if len(rows) != len(block_labels):
         raise TrialInputError(f"The grid has {len(rows)} rows but {len(block_labels)} block labels.")
     block_of, treatment_of, observed = [], [], []
@@ -152,6 +154,26 @@ def design_from_grid(values, blocks, treatments) -> BlockDesign:
             block_of.append(i)
             treatment_of.append(j)
     return _validated(block_labels, treatment_labels, block_of, treatment_of, observed)
+
+
+def _from_numeric_grid(values: np.ndarray, block_labels, treatment_labels) -> BlockDesign:
+    """Vectorised path for a numeric array (NaN = missing)."""
+    grid = np.asarray(values, dtype=float)
+    if grid.ndim != 2 or grid.shape != (len(block_labels), len(treatment_labels)):
+        raise TrialInputError(
+            f"The grid has shape {grid.shape} but there are {len(block_labels)} blocks and "
+            f"{len(treatment_labels)} treatments."
+        )
+    infinite = np.isinf(grid)
+    if infinite.any():
+        i, j = (int(k[0]) for k in np.nonzero(infinite))
+        raise TrialInputError(
+            f"The value for block '{block_labels[i]}', treatment '{treatment_labels[j]}' holds {grid[i, j]}, "
+            "which is not a finite number."
+        )
+    present = ~np.isnan(grid)
+    block_of, treatment_of = np.nonzero(present)
+    return _validated(block_labels, treatment_labels, block_of, treatment_of, grid[present])
 
 
 def design_from_records(blocks, treatments, values) -> BlockDesign:
@@ -213,8 +235,8 @@ def _validated(block_labels, treatment_labels, block_of, treatment_of, observed)
     values = np.asarray(observed, dtype=float)
     if len(treatment_labels) < 2:
         raise TrialInputError(f"At least two treatments are needed to compare; found {len(treatment_labels)}.")
-    counts = np.zeros((len(block_labels), len(treatment_labels)), dtype=np.int64)
-    np.add.at(counts, (block_index, treatment_index), 1)
+    n_b, n_t = len(block_labels), len(treatment_labels)
+    counts = np.bincount(block_index * n_t + treatment_index, minlength=n_b * n_t).reshape(n_b, n_t)
     empty_treatments = [treatment_labels[j] for j in np.nonzero(counts.sum(axis=0) == 0)[0]]
     if empty_treatments:
         raise TrialInputError(
