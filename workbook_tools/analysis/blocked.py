@@ -24,8 +24,8 @@ def _residual_table(design, fitted, residuals, leverage, residual_ms, exact) -> 
                                 residuals / np.sqrt(np.maximum(denominator, 1e-300)), np.nan)
     outlier = np.abs(np.nan_to_num(standardized, nan=0.0)) > OUTLIER_LIMIT
     return ResidualTable(
-        block=[design.blocks[i] for i in design.block_index],
-        treatment=[design.treatments[j] for j in design.treatment_index],
+        block_labels=design.blocks, treatment_labels=design.treatments,
+        block_index=design.block_index, treatment_index=design.treatment_index,
         observed=design.values, fitted=fitted, residual=residuals, standardized=standardized,
         leverage=leverage, outlier=outlier,
     )

@@ -67,16 +67,32 @@ class Summary:
 
 @dataclass(frozen=True)
 class ResidualTable:
-    """Per-observation fitted values and residuals, stored as columns."""
+    """Per-observation fitted values and residuals, stored as columns.
 
-    block: list[str]
-    treatment: list[str]
+    Labels are kept as positions into ``block_labels`` / ``treatment_labels``
+    so that large trials do not build per-observation lists until asked.
+    """
+
+    block_labels: tuple[str, ...]
+    treatment_labels: tuple[str, ...]
+    block_index: np.ndarray
+    treatment_index: np.ndarray
     observed: np.ndarray
     fitted: np.ndarray
     residual: np.ndarray
     standardized: np.ndarray   # NaN where leverage is 1 or the error variance is zero
     leverage: np.ndarray
     outlier: np.ndarray        # |standardized| > 3 (common practice)
+
+    @property
+    def block(self) -> list[str]:
+        """Block label of each observation."""
+        return [self.block_labels[i] for i in self.block_index.tolist()]
+
+    @property
+    def treatment(self) -> list[str]:
+        """Treatment label of each observation."""
+        return [self.treatment_labels[j] for j in self.treatment_index.tolist()]
 
     def rows(self) -> list[dict]:
         """One dict per observation, JSON-safe."""
@@ -86,10 +102,11 @@ class ResidualTable:
             "leverage": self.leverage.tolist(), "outlier": self.outlier.tolist(),
         }
         out = []
-        for i in range(len(self.block)):
+        blocks, treatments = self.block, self.treatment
+        for i in range(len(blocks)):
             std = columns["standardized"][i]
             out.append({
-                "block": self.block[i], "treatment": self.treatment[i],
+                "block": blocks[i], "treatment": treatments[i],
                 "observed": columns["observed"][i], "fitted": columns["fitted"][i],
                 "residual": columns["residual"][i],
                 "standardized": std if math.isfinite(std) else None,
