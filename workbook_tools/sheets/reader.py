@@ -25,6 +25,7 @@ from defusedxml.ElementTree import iterparse
 from openpyxl.worksheet.formula import ArrayFormula, DataTableFormula
 
 from workbook_tools.analysis.errors import TrialInputError
+from workbook_tools.sheets import limits
 from workbook_tools.sheets.ranges import CellRange, cell_address, resolve_range
 
 LARGE_FILE_BYTES = 5 * 1024 * 1024
@@ -89,9 +90,41 @@ def read_trials(path, range_text, *, layout="auto", transposed=False, block=None
     list of TrialTable
         One table for a wide layout, one per response for a long layout.
     """
+    _check_layout(layout)
+    grid = _read_grid(Path(path), range_text, read_only)
+    return _trials(grid, layout, transposed, block, treatment, responses, text_numbers, errors_as_missing)
+
+
+def read_range_values(path, range_text, *, read_only=None) -> tuple[CellRange, list[list]]:
+    """The cells of a range as plain values, after the same checks on the sheet as `read_trials`.
+
+    Returns the range and its rows (as far as the sheet holds anything): ``None`` for a
+    blank cell, error values as their text (``"#N/A"``), other values as openpyxl gives them.
+    """
+    grid = _read_grid(Path(path), range_text, read_only)
+    return grid.rng, [[value for value, _ in row] for row in grid.rows]
+
+
+def trials_from_values(values, rng: CellRange, *, layout="auto", transposed=False, block=None, treatment=None,
+                       responses=None, text_numbers=False, errors_as_missing=False) -> list[TrialTable]:
+    """Read a trial from a grid of plain values, as a spreadsheet passes a range to a function.
+
+    ``values`` is a list of rows: numbers, text, ``None`` for blanks, booleans, dates,
+    error values as text (``"#N/A"``); ``rng`` says where the grid's top-left cell is,
+    for messages. The rules, options and messages are those of `read_trials`.
+    """
+    _check_layout(layout)
+    grid = _Grid(rng, [[(value, None) for value in row] for row in values])
+    return _trials(grid, layout, transposed, block, treatment, responses, text_numbers, errors_as_missing)
+
+
+def _check_layout(layout) -> None:
     if layout not in ("auto", "wide", "long"):
         raise TrialInputError(f"The layout must be wide, long or auto, not {layout!r}.")
-    wb, handle = _open_workbook(Path(path), read_only, data_only=True)
+
+
+def _read_grid(path: Path, range_text, read_only) -> "_Grid":
+    wb, handle = _open_workbook(path, read_only, data_only=True)
     try:
         rng = resolve_range(wb, range_text)
         ws = wb[rng.sheet]
@@ -101,7 +134,14 @@ def read_trials(path, range_text, *, layout="auto", transposed=False, block=None
     finally:
         wb.close()
         handle.close()
-    _check_calculated(Path(path), grid, recalc_on_open)
+    _check_calculated(path, grid, recalc_on_open)
+    return grid
+
+
+def _trials(grid: "_Grid", layout, transposed, block, treatment, responses, text_numbers,
+            errors_as_missing) -> list[TrialTable]:
+    """The layout rules every front end shares: one table for a wide grid, one per long response."""
+    rng = grid.rng
     if all(_is_blank(value) for row in grid.rows for value, _ in row):
         grid.fail(f"The range {rng.a1} is empty. Check that the range covers the data.")
     options = dict(text_numbers=text_numbers, errors_as_missing=errors_as_missing)
@@ -127,6 +167,7 @@ def _open_workbook(path: Path, read_only, *, data_only: bool):
         raise TrialInputError(f"The file {str(path)!r} does not exist. Check the name and folder.")
     if path.is_dir():
         raise TrialInputError(f"{str(path)!r} is a folder, not a workbook file.")
+    limits.check_package(path)  # size, kind, zip bomb, XML bomb, ... before openpyxl parses anything
     if not zipfile.is_zipfile(path):
         with open(path, "rb") as fh:
             start = fh.read(8)
@@ -169,9 +210,11 @@ class _Grid:
         max_row, max_col = rng.max_row, rng.max_col
         if hasattr(ws, "merged_cells"):  # a normal worksheet knows its true extent
             max_row, max_col = min(max_row, ws.max_row), min(max_col, ws.max_column)
+        limits.check_cells(rng.sheet, rng.a1, max_row - rng.min_row + 1, max_col - rng.min_col + 1)
         rows = []
         if max_row >= rng.min_row and max_col >= rng.min_col:
             for row in ws.iter_rows(min_row=rng.min_row, max_row=max_row, min_col=rng.min_col, max_col=max_col):
+                limits.check_time()
                 rows.append([(c.value, c.data_type) for c in row])
         return cls(rng, rows)
 
@@ -213,43 +256,63 @@ def _kind(value) -> str | None:
 
 def _number(grid: _Grid, i: int, j: int, *, text_numbers: bool, errors_as_missing: bool) -> float | None:
     """The value in a body cell, ``None`` for a missing value."""
-    value, data_type = grid.value(i, j)
+    try:
+        return cell_number(*grid.value(i, j), text_numbers=text_numbers, errors_as_missing=errors_as_missing)
+    except TrialInputError as error:
+        grid.fail(error.message, i, j)
+
+
+def cell_number(value, data_type=None, *, text_numbers=False, errors_as_missing=False) -> float | None:
+    """The one rule for a value cell: a number, ``None`` for missing, or a `TrialInputError`.
+
+    Blank is missing; numbers are accepted; numbers stored as text only with
+    ``text_numbers``; error values (``data_type == "e"`` or their text) are refused
+    unless ``errors_as_missing``; booleans, dates, times and other text are refused.
+    The error carries no place: the caller adds the sheet and cell.
+    """
     if _is_blank(value):
         return None
     if _is_error(value, data_type):
         if errors_as_missing:
             return None
-        grid.fail(f"The cell holds the error value {value}, not a number. Correct it in the sheet, "
-                  "or give --errors-as-missing to treat error values as missing.", i, j)
+        raise TrialInputError(f"The cell holds the error value {value}, not a number. Correct it in the sheet, "
+                              "or give --errors-as-missing to treat error values as missing.")
     kind = _kind(value)
     if kind:
         hint = (" If the cell should hold a number, set its number format to General or Number."
                 if "date" in kind or "time" in kind or "duration" in kind else "")
-        grid.fail(f"The cell holds {kind}, not a number.{hint} Leave it blank for a missing value.", i, j)
+        raise TrialInputError(f"The cell holds {kind}, not a number.{hint} Leave it blank for a missing value.")
     if isinstance(value, str):
         text = value.strip()
         if not _NUMBER_TEXT.fullmatch(text):
-            grid.fail(f"The cell holds the text {text!r}, not a number. Enter a number, "
-                      "or leave it blank for a missing value.", i, j)
+            raise TrialInputError(f"The cell holds the text {text!r}, not a number. Enter a number, "
+                                  "or leave it blank for a missing value.")
         if not text_numbers:
-            grid.fail(f"The cell holds the text {text!r}: a number stored as text. Convert it to a number "
-                      "in the sheet, or give --text-numbers to accept numbers stored as text.", i, j)
+            raise TrialInputError(f"The cell holds the text {text!r}: a number stored as text. Convert it to a "
+                                  "number in the sheet, or give --text-numbers to accept numbers stored as text.")
         value = float(text)
     if not isinstance(value, (int, float)):
-        grid.fail(f"The cell holds {value!r}, which is not a number.", i, j)
+        raise TrialInputError(f"The cell holds {value!r}, which is not a number.")
     value = float(value)
     if not math.isfinite(value):
-        grid.fail(f"The cell holds {value}, which is not a finite number.", i, j)
+        raise TrialInputError(f"The cell holds {value}, which is not a finite number.")
     return value
 
 
 def _label(grid: _Grid, i: int, j: int, what: str) -> str | None:
     """A label as text (numbers without a trailing .0, dates in ISO form), ``None`` when blank."""
-    value, data_type = grid.value(i, j)
+    try:
+        return cell_label(*grid.value(i, j), what)
+    except TrialInputError as error:
+        grid.fail(error.message, i, j)
+
+
+def cell_label(value, data_type, what: str) -> str | None:
+    """The one rule for a label cell: text, ``None`` when blank, or a `TrialInputError` without a place."""
     if _is_blank(value):
         return None
     if _is_error(value, data_type):
-        grid.fail(f"The cell holds the error value {value} where a {what} is expected.", i, j)
+        raise TrialInputError(f"The cell holds the error value {value} where a {what} is expected.")
     if isinstance(value, bool):
         return str(value).upper()
     if isinstance(value, dt.datetime) and value.time() == dt.time(0):
@@ -258,7 +321,7 @@ def _label(grid: _Grid, i: int, j: int, what: str) -> str | None:
         return value.isoformat()
     if isinstance(value, float):
         if not math.isfinite(value):
-            grid.fail(f"The cell holds {value} where a {what} is expected.", i, j)
+            raise TrialInputError(f"The cell holds {value} where a {what} is expected.")
         return str(int(value)) if value.is_integer() else repr(value)
     return str(value).strip()
 
