@@ -79,9 +79,9 @@ def test_shift_leaves_and_scale_squares_the_sums_of_squares(values, shift, scale
 def test_closed_form_equals_least_squares_on_balanced_data(values):
     b, t = values.shape
     design = design_from_grid(values, _labels("B", b), _labels("T", t))
-    centred = design.values - design.values.mean()
-    closed = fit_module._closed_form(design, centred, design.values.mean())
-    absorbed = fit_module._absorbed(design, centred, design.values.mean())
+    closed = fit_module.fit_additive(design, solver=fit_module.AdditiveSolver(design, closed_form=True))
+    absorbed = fit_module.fit_additive(design, solver=fit_module.AdditiveSolver(design, closed_form=False))
+    assert closed.solver.equal and not absorbed.solver.equal
     assert closed.sse == pytest.approx(absorbed.sse, rel=1e-10)
     np.testing.assert_allclose(closed.fitted, absorbed.fitted, rtol=1e-12)
     np.testing.assert_allclose(closed.leverage, absorbed.leverage, rtol=1e-10)

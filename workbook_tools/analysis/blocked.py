@@ -130,7 +130,7 @@ def analyze_design(
     }
     if cells is None and design.one_per_cell_at_most:
         checks["additivity"] = assumption_checks.additivity_check(
-            residuals, fit.fitted, lambda z: fit_additive(design, z).residuals,
+            residuals, fit.fitted, fit.solver.residuals,
             residual_sse, residual_row.df, alpha=alpha,
         )
     else:

@@ -53,30 +53,62 @@ class AdditiveFit:
     sse: float
     c_plus: np.ndarray
     leverage: np.ndarray
+    solver: "AdditiveSolver"
 
 
 def _sum_by(index: np.ndarray, weights: np.ndarray, size: int) -> np.ndarray:
     return np.bincount(index, weights=weights, minlength=size)
 
 
-def _closed_form(design: BlockDesign, centred: np.ndarray, shift: float) -> AdditiveFit:
-    """Every cell holds the same number ``m`` of observations."""
-    b, t = design.n_blocks, design.n_treatments
-    bi, ti = design.block_index, design.treatment_index
-    m = int(design.counts.flat[0])
-    treatment_means = _sum_by(ti, centred, t) / (b * m)
-    block_means = _sum_by(bi, centred, b) / (t * m)
-    level = treatment_means.mean()
-    treatment_effects = treatment_means - level
-    block_effects = block_means
-    fitted_centred = block_effects[bi] + treatment_effects[ti]
-    residuals = centred - fitted_centred
-    c_plus = (np.eye(t) - 1.0 / t) / (b * m)
-    leverage = np.full(design.n, 1.0 / (t * m) + (t - 1) / (b * m * t))
-    return AdditiveFit(
-        shift, block_effects, treatment_effects, fitted_centred + shift, residuals,
-        float(residuals @ residuals), c_plus, leverage,
-    )
+class AdditiveSolver:
+    """The additive model's normal equations for one layout, factorised once.
+
+    Solving for another response on the same layout (for example Tukey's
+    squared fitted values) reuses the factorisation.
+    """
+
+    def __init__(self, design: BlockDesign, closed_form: bool | None = None):
+        self.design = design
+        b, t = design.n_blocks, design.n_treatments
+        self.equal = design.equal_counts if closed_form is None else bool(closed_form and design.equal_counts)
+        counts = design.counts.astype(float)
+        self.k = counts.sum(axis=1)
+        self.share = counts / self.k[:, None]                        # N_bj / k_b
+        if self.equal:
+            m = float(design.counts.flat[0])
+            self.c_plus = (np.eye(t) - 1.0 / t) / (b * m)
+        else:
+            self.c_plus = _pseudo_inverse_connected(information_matrix(counts))
+        self._counts = counts
+
+    def effects(self, centred: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Block effects and treatment effects (summing to zero) of a centred response."""
+        d = self.design
+        b, t = d.n_blocks, d.n_treatments
+        block_totals = _sum_by(d.block_index, centred, b)
+        treatment_totals = _sum_by(d.treatment_index, centred, t)
+        if self.equal:
+            tau = treatment_totals / self._counts.sum(axis=0)
+            tau -= tau.mean()
+            return block_totals / self.k, tau
+        tau = self.c_plus @ (treatment_totals - self.share.T @ block_totals)
+        tau -= tau.mean()
+        return (block_totals - self._counts @ tau) / self.k, tau
+
+    def residuals(self, values: np.ndarray) -> np.ndarray:
+        """Residual of any response on this layout after the additive fit."""
+        centred = np.asarray(values, dtype=float)
+        centred = centred - centred.mean()
+        beta, tau = self.effects(centred)
+        return centred - beta[self.design.block_index] - tau[self.design.treatment_index]
+
+    def leverage(self) -> np.ndarray:
+        """Hat-matrix diagonal: h = 1/k_b + (e_t - s_b)' C+ (e_t - s_b), s_b the block's share row."""
+        d = self.design
+        a = self.share @ self.c_plus                                 # (b, t)
+        quad = np.einsum("bt,bt->b", a, self.share)
+        cell = (1.0 / self.k)[:, None] + np.diag(self.c_plus)[None, :] - 2.0 * a + quad[:, None]
+        return cell[d.block_index, d.treatment_index]
 
 
 def information_matrix(counts: np.ndarray) -> np.ndarray:
@@ -99,33 +131,8 @@ def _pseudo_inverse_connected(c: np.ndarray) -> np.ndarray:
     return np.linalg.inv(c + j) - j
 
 
-def _absorbed(design: BlockDesign, centred: np.ndarray, shift: float) -> AdditiveFit:
-    """Unequal or missing cells: absorb blocks, solve C tau = Q."""
-    b, t = design.n_blocks, design.n_treatments
-    bi, ti = design.block_index, design.treatment_index
-    counts = design.counts.astype(float)
-    k = counts.sum(axis=1)
-    share = counts / k[:, None]                          # N_bj / k_b
-    block_totals = _sum_by(bi, centred, b)
-    treatment_totals = _sum_by(ti, centred, t)
-    c_plus = _pseudo_inverse_connected(information_matrix(counts))
-    adjusted_totals = treatment_totals - share.T @ block_totals
-    tau = c_plus @ adjusted_totals
-    tau -= tau.mean()
-    beta = (block_totals - counts @ tau) / k
-    fitted_centred = beta[bi] + tau[ti]
-    residuals = centred - fitted_centred
-    # h = 1/k_b + (e_t - s_b)' C+ (e_t - s_b), with s_b the block's share row
-    a = share @ c_plus                                   # (b, t)
-    quad = np.einsum("bt,bt->b", a, share)
-    cell_leverage = (1.0 / k)[:, None] + np.diag(c_plus)[None, :] - 2.0 * a + quad[:, None]
-    leverage = cell_leverage[bi, ti]
-    return AdditiveFit(
-        shift, beta, tau, fitted_centred + shift, residuals, float(residuals @ residuals), c_plus, leverage
-    )
-
-
-def fit_additive(design: BlockDesign, values: np.ndarray | None = None) -> AdditiveFit:
+def fit_additive(design: BlockDesign, values: np.ndarray | None = None,
+                 solver: AdditiveSolver | None = None) -> AdditiveFit:
     """Fit the additive block + treatment model.
 
     Parameters
@@ -133,7 +140,8 @@ def fit_additive(design: BlockDesign, values: np.ndarray | None = None) -> Addit
     design : BlockDesign
     values : ndarray, optional
         Another response on the same layout (default: the design's values).
-        Used to residualise auxiliary variables, e.g. for Tukey's test.
+    solver : AdditiveSolver, optional
+        A factorisation of this layout to reuse.
 
     Returns
     -------
@@ -143,12 +151,17 @@ def fit_additive(design: BlockDesign, values: np.ndarray | None = None) -> Addit
     ----------
     Searle (1987), *Linear Models for Unbalanced Data*, section 4.2.
     """
+    solver = solver or AdditiveSolver(design)
     y = design.values if values is None else np.asarray(values, dtype=float)
     shift = float(y.mean())
     centred = y - shift
-    if design.equal_counts:
-        return _closed_form(design, centred, shift)
-    return _absorbed(design, centred, shift)
+    beta, tau = solver.effects(centred)
+    fitted_centred = beta[design.block_index] + tau[design.treatment_index]
+    residuals = centred - fitted_centred
+    return AdditiveFit(
+        shift, beta, tau, fitted_centred + shift, residuals, float(residuals @ residuals), solver.c_plus,
+        solver.leverage(), solver,
+    )
 
 
 def within_group_ss(index: np.ndarray, centred: np.ndarray, size: int) -> tuple[float, np.ndarray]:
