@@ -67,6 +67,9 @@ def build_parser() -> argparse.ArgumentParser:
     demo = commands.add_parser("demo", help="analyse a bundled sample workbook")
     demo.add_argument("--folder", type=Path, default=Path("workbook-tools-demo"),
                       help="where to put the sample and its result (default ./workbook-tools-demo)")
+    from workbook_tools.jobs import add_run_parser
+
+    add_run_parser(commands)
     return parser
 
 
@@ -145,6 +148,10 @@ def main(argv=None) -> int:
             return run_analyze(args, say)
         if args.command == "demo":
             return run_demo(args, say)
+        if args.command == "run":
+            from workbook_tools.jobs import run_command
+
+            return run_command(args, say)
     except TrialInputError as error:
         print(f"workbook-tools: {error}", file=sys.stderr)
         return EXIT_INPUT

@@ -246,3 +246,88 @@ _WRITERS = {
     "assay_replicates.xlsx": _assay_replicates,
     "supplier_control.xlsx": _supplier_control,
 }
+
+
+# ---------------------------------------------------------------- a workbook with a job sheet
+
+JOB_SAMPLE = "job_sheet_trials.xlsx"
+"""Two trials and a job sheet with three analyses, for ``workbook-tools run``."""
+MACRO_SAMPLE = "job_sheet_runner.xlsm"
+"""The same trials and jobs in a macro-enabled workbook made from xlwings' standalone quickstart."""
+JOB_ROWS = (
+    # Range, Layout, Block, Treatment, Responses, Compare, Alpha, Control, Prefix
+    ("Hardness!B3:G9", "wide", None, None, None, "tukey", 0.05, None, "hard-"),
+    ("StripTrial", "long", "Strip", "Variety", "Yield (t/ha); Protein (%)", "holm", 0.1, None, "wheat-"),
+    ("HardnessData", None, None, None, None, "dunnett", 0.05, "PX-100 (current)", "dunnett-"),
+)
+"""The three jobs: Tukey on a wide grid, Holm on two long responses, Dunnett against the current coating."""
+
+
+def _job_sheet(ws) -> None:
+    from workbook_tools.jobs import COLUMNS
+
+    ws.cell(1, 1, "Jobs for workbook-tools").font = _TITLE
+    ws.cell(2, 1, "One analysis per row. Run them with: workbook-tools run job_sheet_trials.xlsx "
+                  "(or the RunPython macro in Excel); Status, Ran at and Sheets written are filled in.").font = _NOTE
+    for j, name in enumerate(COLUMNS, start=1):
+        ws.cell(4, j, name).font = _BOLD
+    for i, job in enumerate(JOB_ROWS, start=5):
+        for j, value in enumerate(job, start=1):
+            ws.cell(i, j, value)
+    _widths(ws, {1: 18, 2: 9, 3: 9, 4: 11, 5: 26, 6: 10, 7: 7, 8: 18, 9: 10, 10: 40, 11: 20, 12: 40})
+
+
+def _fill_job_workbook(wb, jobs_ws) -> None:
+    """Name ``jobs_ws`` as the job sheet, fill it and add the two trial sheets after it."""
+    from workbook_tools.jobs import JOB_SHEET
+
+    jobs_ws.title = JOB_SHEET
+    _job_sheet(jobs_ws)
+    for filename, writer in (("coating_hardness.xlsx", _coating_hardness), ("wheat_strips.xlsx", _wheat_strips)):
+        sample = next(s for s in SAMPLES if s.filename == filename)
+        writer(wb, wb.create_sheet(sample.sheet), sample)
+    wb.active = 0
+
+
+def build_job_sample(folder) -> pathlib.Path:
+    """Write `JOB_SAMPLE` (the coating and wheat trials and a job sheet) into ``folder``."""
+    folder = pathlib.Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    wb = openpyxl.Workbook()
+    _fill_job_workbook(wb, wb.active)
+    wb.properties.creator = "workbook-tools"
+    wb.properties.title = "Two invented trials and a job sheet for workbook-tools run."
+    wb.properties.created = dt.datetime(2024, 1, 1)
+    path = folder / JOB_SAMPLE
+    wb.save(path)
+    return path
+
+
+def build_macro_sample(folder, template) -> pathlib.Path:
+    """Write `MACRO_SAMPLE` into ``folder`` from the ``.xlsm`` that ``xlwings quickstart --standalone`` made.
+
+    The template's VBA project (the xlwings module and a ``SampleCall`` macro that runs
+    ``main()`` of the Python file named like the workbook) is kept byte for byte; its
+    first sheet becomes the job sheet, the trial sheets are added, and its configuration
+    sheet is switched on with the worksheet functions as UDF module. A
+    ``job_sheet_runner.py`` beside it gives ``main()``.
+    """
+    folder = pathlib.Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    wb = openpyxl.load_workbook(template, keep_vba=True)
+    _fill_job_workbook(wb, wb.worksheets[0])
+    if "_xlwings.conf" in wb.sheetnames:
+        conf = wb["_xlwings.conf"]
+        conf.title = "xlwings.conf"
+        for row in conf.iter_rows(min_col=1, max_col=2):
+            if row[0].value == "UDF Modules":
+                row[1].value = "workbook_tools.excel.functions"
+    wb.move_sheet("xlwings.conf", offset=len(wb.sheetnames))
+    wb.active = 0
+    path = folder / MACRO_SAMPLE
+    wb.save(path)
+    (folder / (path.stem + ".py")).write_text(
+        '"""Called by the SampleCall macro of job_sheet_runner.xlsm: run the job sheet."""\n\n'
+        "from workbook_tools.excel.live import run_jobs\n\n\n"
+        "def main():\n    run_jobs()\n", encoding="utf-8")
+    return path
