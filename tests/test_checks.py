@@ -353,3 +353,13 @@ def test_check_outcome_to_dict_replaces_non_finite_numbers():
     assert json_safe(outcome) == {"name": "normality", "method": "x", "statistic": None,
                                   "p": None, "df": None, "passed": None, "verdict": "v",
                                   "extra": {"slope": None, "n": 3}}
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.integers(1, 6), st.integers(1, 8), st.integers(0, 2**31 - 1), st.integers(1, 5))
+def test_average_ranks_match_scipy_rankdata(b, t, seed, levels):
+    # Reference: scipy.stats.rankdata(method="average") row by row, with many ties.
+    from workbook_tools.analysis.checks import average_ranks
+
+    values = np.random.default_rng(seed).integers(0, levels, (b, t)).astype(float)
+    np.testing.assert_allclose(average_ranks(values), stats.rankdata(values, axis=1))

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
-from scipy import stats
+from scipy import special, stats
 
 from workbook_tools.analysis.errors import TrialInputError
 
@@ -139,7 +139,10 @@ def normality_check(residuals, alpha: float = 0.05, *, zero_tolerance: float = 0
         return _not_available("normality", method,
                               "the residuals are all equal (the model fits the data exactly), "
                               "so there is no scatter whose shape could be judged.")
-    result = stats.normaltest(values) if large else stats.shapiro(values)
+    # Both statistics are scale-free, but scipy's Shapiro-Wilk takes a tiny absolute spread for
+    # zero range (seen with residuals near 1e-20); scaling by a power of two is exact.
+    unit = np.ldexp(values, -int(np.frexp(np.max(np.abs(values)))[1]))
+    result = stats.normaltest(unit) if large else stats.shapiro(unit)
     statistic, p = float(result.statistic), float(result.pvalue)
     passed = p >= alpha
     if passed:
@@ -150,6 +153,14 @@ def normality_check(residuals, alpha: float = 0.05, *, zero_tolerance: float = 0
                    "test and the comparisons may be unreliable: look at the Q-Q plot, and "
                    "consider transforming the response or using the rank-based Friedman test.")
     return CheckOutcome("normality", method, statistic, p, None, passed, verdict)
+
+
+def _medians(groups: list[np.ndarray]) -> np.ndarray:
+    """Median of each group, computed in one sort when the groups are of equal size."""
+    sizes = {g.size for g in groups}
+    if len(sizes) == 1:
+        return np.median(np.stack(groups), axis=1)
+    return np.array([np.median(g) for g in groups])
 
 
 def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: float = 0.05,
@@ -194,7 +205,9 @@ def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: f
         raise TrialInputError("Each residual needs exactly one treatment number.")
     keep = np.isfinite(values)
     values, index = values[keep], index[keep]
-    groups = [values[index == k] for k in range(n_treatments)]
+    order = np.argsort(index, kind="stable")
+    sizes = np.bincount(index, minlength=n_treatments)
+    groups = np.split(values[order], np.cumsum(sizes)[:-1])
     dropped = sum(1 for g in groups if g.size < 2)
     groups = [g for g in groups if g.size >= 2]
     note = (f" ({dropped} treatment{'s' if dropped != 1 else ''} with fewer than 2 residuals "
@@ -202,7 +215,7 @@ def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: f
     if len(groups) < 2:
         return _not_available(name, method, "at least two treatments with two or more "
                               f"residuals each are needed{note}.")
-    deviations = [np.abs(g - np.median(g)) for g in groups]
+    deviations = [np.abs(g - m) for g, m in zip(groups, _medians(groups))]
     deviations = [np.where(d <= zero_tolerance, 0.0, d) for d in deviations]
     total = sum(float(np.sum(d * d)) for d in deviations)
     within = sum(float(np.sum((d - d.mean()) ** 2)) for d in deviations)
@@ -210,9 +223,13 @@ def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: f
         return _not_available(name, method, "the distances from each treatment's median do "
                               "not vary within treatments (for instance with only two "
                               f"residuals per treatment), so spreads cannot be compared{note}.")
-    result = stats.levene(*groups, center="median")
-    statistic, p = float(result.statistic), float(result.pvalue)
-    df = (len(groups) - 1, sum(g.size for g in groups) - len(groups))
+    # Brown-Forsythe = one-way ANOVA of the absolute deviations from the group medians
+    n_total = sum(d.size for d in deviations)
+    grand = sum(float(d.sum()) for d in deviations) / n_total
+    between = sum(d.size * (float(d.mean()) - grand) ** 2 for d in deviations)
+    df = (len(groups) - 1, n_total - len(groups))
+    statistic = (between / df[0]) / (within / df[1])
+    p = float(special.fdtrc(df[0], df[1], statistic))
     passed = p >= alpha
     if passed:
         verdict = (f"No clear difference in spread between treatments ({_p_text(p)}){note}; "
@@ -290,7 +307,7 @@ def additivity_check(residuals, fitted, residualize: Callable[[np.ndarray], np.n
                    "is nothing left to test it against; judge the interaction plot instead.")
         return CheckOutcome(name, method, None, None, (1, error_df - 1), None, verdict, extra)
     statistic = ss_nonadd / (ss_remainder / (error_df - 1))
-    p = float(stats.f.sf(statistic, 1, error_df - 1))
+    p = float(special.fdtrc(1, error_df - 1, statistic))
     passed = p >= alpha
     if passed:
         verdict = (f"No clear sign that treatment differences change with the block level "
@@ -328,7 +345,7 @@ def qq_points(standardized_residuals) -> dict:
     n = order.size
     positions = (np.arange(1, n + 1) - 0.375) / (n + 0.25)
     return {
-        "theoretical": stats.norm.ppf(positions),
+        "theoretical": special.ndtri(positions),
         "sample": values[order],
         "order": order,
         "plotting_position": "Blom (i - 3/8)/(n + 1/4)",
@@ -357,12 +374,40 @@ def reference_line(theoretical, sample) -> tuple[float, float]:
     y = np.asarray(sample, dtype=float).ravel()
     if x.size < 2 or x.size != y.size:
         return 0.0, 1.0
-    x1, x3 = np.quantile(x, [0.25, 0.75])
-    y1, y3 = np.quantile(y, [0.25, 0.75])
+    x1, x3 = _quartiles(np.sort(x))
+    y1, y3 = _quartiles(np.sort(y))
     if not x3 > x1:
         return 0.0, 1.0
     slope = (y3 - y1) / (x3 - x1)
     return float(y1 - slope * x1), float(slope)
+
+
+def _quartiles(ordered: np.ndarray) -> tuple[float, float]:
+    """First and third quartiles of sorted values (linear interpolation, as numpy's default)."""
+    positions = np.array([0.25, 0.75]) * (ordered.size - 1)
+    low = np.floor(positions).astype(int)
+    high = np.minimum(low + 1, ordered.size - 1)
+    fraction = positions - low
+    values = ordered[low] + fraction * (ordered[high] - ordered[low])
+    return float(values[0]), float(values[1])
+
+
+def average_ranks(values: np.ndarray) -> np.ndarray:
+    """Ranks 1..t within each row, tied values sharing their average rank (vectorised)."""
+    b, t = values.shape
+    order = np.argsort(values, axis=1, kind="stable")
+    ordered = np.take_along_axis(values, order, axis=1)
+    new_run = np.ones((b, t), dtype=bool)
+    new_run[:, 1:] = ordered[:, 1:] != ordered[:, :-1]
+    positions = np.broadcast_to(np.arange(t), (b, t))
+    run_start = np.maximum.accumulate(np.where(new_run, positions, 0), axis=1)
+    run_end_marks = np.ones((b, t), dtype=bool)
+    run_end_marks[:, :-1] = new_run[:, 1:]
+    run_end = np.minimum.accumulate(np.where(run_end_marks, positions, t - 1)[:, ::-1], axis=1)[:, ::-1]
+    sorted_ranks = (run_start + run_end) / 2.0 + 1.0
+    ranks = np.empty((b, t))
+    np.put_along_axis(ranks, order, sorted_ranks, axis=1)
+    return ranks
 
 
 @dataclass(frozen=True)
@@ -440,7 +485,7 @@ def friedman_test(cell_values, alpha: float = 0.05) -> FriedmanOutcome:
         raise TrialInputError("The Friedman test needs a value in every cell.")
     b, t = values.shape
     df = t - 1
-    centred = stats.rankdata(values, axis=1) - (t + 1) / 2.0
+    centred = average_ranks(values) - (t + 1) / 2.0
     rank_spread = float(np.sum(centred * centred))
     if rank_spread == 0.0:
         return FriedmanOutcome(None, df, None, None, "Not available: every block has tied "
@@ -448,7 +493,7 @@ def friedman_test(cell_values, alpha: float = 0.05) -> FriedmanOutcome:
     rank_sums = centred.sum(axis=0)
     treatment_spread = float(rank_sums @ rank_sums)
     statistic = df * treatment_spread / rank_spread
-    p = float(stats.chi2.sf(statistic, df))
+    p = float(special.chdtrc(df, statistic))
     w = treatment_spread / (b * rank_spread)
     figures = f"chi-square = {statistic:.4g} on {df} df, {_p_text(p)}, Kendall's W = {w:.2f}"
     if p < alpha:

@@ -9,6 +9,7 @@ turns t statistics into adjusted p-values and a critical multiplier.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import lru_cache
 
 import numpy as np
 from scipy import special
@@ -93,6 +94,16 @@ def _holm(p: np.ndarray) -> np.ndarray:
     return adjusted
 
 
+@lru_cache(maxsize=256)
+def tukey_critical(alpha: float, k: int, df: int) -> float:
+    """Tukey's critical multiplier q(1 - alpha; k, df) / sqrt(2), memoised.
+
+    Worksheets recalculate with the same alpha, number of treatments and error
+    df again and again; the quantile is the costliest step of a small analysis.
+    """
+    return float(distributions.studentized_range_quantile(1.0 - alpha, k, df)) / np.sqrt(2.0)
+
+
 def _all_pairs_p_and_critical(method: str, t: np.ndarray, k: int, df: int, alpha: float) -> tuple[np.ndarray, float]:
     m = t.size
     if method == "lsd":
@@ -104,7 +115,7 @@ def _all_pairs_p_and_critical(method: str, t: np.ndarray, k: int, df: int, alpha
     if method == "tukey":
         q = np.abs(t) * np.sqrt(2.0)
         p = np.minimum(distributions.studentized_range_sf(q, k, df), 1.0)
-        critical = float(distributions.studentized_range_quantile(1.0 - alpha, k, df)) / np.sqrt(2.0)
+        critical = tukey_critical(float(alpha), int(k), int(df))
         return np.asarray(p, dtype=float), critical
     raise ValueError(method)
 
