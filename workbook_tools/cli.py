@@ -41,6 +41,9 @@ def _add_analysis_options(parser: argparse.ArgumentParser) -> None:
     stats.add_argument("--block-model", choices=("random", "fixed"), default="random",
                        help="with replicates in every cell: random blocks test treatments against the "
                             "interaction, fixed blocks against the within-cell error (default random)")
+    from workbook_tools.sheets.limits import add_limit_options
+
+    add_limit_options(parser)
     out = parser.add_argument_group("output")
     out.add_argument("--out", type=Path, help="result workbook (default: BOOK-analysed.xlsx beside the input)")
     out.add_argument("--in-place", action="store_true",
@@ -96,7 +99,10 @@ def run_analyze(args, say) -> int:
     from workbook_tools.sheets.book import analyses_json, analyse_book, write_analyses
 
     options = _options(args)
-    analyses = analyse_book(args.book, args.range_text, **options)
+    from workbook_tools.sheets.limits import applied, limits_from_options
+
+    with applied(limits_from_options(args)):
+        analyses = analyse_book(args.book, args.range_text, **options)
     data = analyses_json(analyses)
     if not args.no_workbook:
         target = write_analyses(args.book, analyses, out=args.out, in_place=args.in_place, prefix=args.prefix,

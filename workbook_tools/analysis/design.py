@@ -229,10 +229,34 @@ def _connected(counts: np.ndarray) -> bool:
     return bool(seen_t.all())
 
 
+LARGEST_MAGNITUDE = 1e40
+"""Values beyond this in size are refused: the checks' sums of powers of them would overflow."""
+SMALLEST_LARGEST_MAGNITUDE = 1e-40
+"""When no value is at least this large (and some are not zero), sums of squares would underflow."""
+
+
+def _check_magnitude(values: np.ndarray) -> None:
+    """Refuse values whose sums of squares (and of cubes, in Tukey's check) overflow or lose precision."""
+    largest = float(np.max(np.abs(values))) if values.size else 0.0
+    if largest > LARGEST_MAGNITUDE:
+        raise TrialInputError(
+            f"A value as large as {largest:.3g} cannot be analysed reliably (the sums of squares would "
+            f"overflow); values up to {LARGEST_MAGNITUDE:g} in size are allowed. Express the response in a "
+            "larger unit (for example, divide every value by a power of ten)."
+        )
+    if 0.0 < largest < SMALLEST_LARGEST_MAGNITUDE:
+        raise TrialInputError(
+            f"Every value is smaller than {SMALLEST_LARGEST_MAGNITUDE:g} in size (the largest is {largest:.3g}), "
+            "so the sums of squares would lose their precision. Express the response in a smaller unit "
+            "(for example, multiply every value by a power of ten)."
+        )
+
+
 def _validated(block_labels, treatment_labels, block_of, treatment_of, observed) -> BlockDesign:
     block_index = np.asarray(block_of, dtype=np.intp)
     treatment_index = np.asarray(treatment_of, dtype=np.intp)
     values = np.asarray(observed, dtype=float)
+    _check_magnitude(values)
     if len(treatment_labels) < 2:
         raise TrialInputError(f"At least two treatments are needed to compare; found {len(treatment_labels)}.")
     n_b, n_t = len(block_labels), len(treatment_labels)

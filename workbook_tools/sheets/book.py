@@ -20,6 +20,7 @@ from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.analysis.result import CAUTIONS, SCHEMA_VERSION, BlockTrialResult
 from workbook_tools.layout import Column, Table, sheet_plans
 from workbook_tools.sheets import safety
+from workbook_tools.sheets.hidden import hidden_warning
 from workbook_tools.sheets.reader import TrialTable, read_trials
 from workbook_tools.sheets.result_charts import add_result_charts
 from workbook_tools.sheets.writer import TITLE_FONT, apply_widths, sheet_name, write_sheet, write_table
@@ -87,13 +88,17 @@ def analyse_book(path, range_text: str, **options) -> list[ResponseAnalysis]:
     read = {k: v for k, v in options.items() if k in READ_OPTIONS and v is not None}
     engine = {k: v for k, v in options.items() if k in ENGINE_OPTIONS and v is not None}
     analyses = []
-    for table in read_trials(path, range_text, **read):
+    tables = read_trials(path, range_text, **read)
+    hidden = hidden_warning(path, tables[0].range) if tables else None
+    for table in tables:
         blocks, treatments, values = _ordered_records(table)
         try:
             result = analyze_records(blocks, treatments, values, **engine)
         except TrialInputError as error:
             where = f" (response '{table.response}')" if table.response else ""
             raise TrialInputError(error.message + where, sheet=table.sheet, cell=table.range.a1) from None
+        if hidden:
+            result.warnings.append(hidden)
         source = {"file": Path(path).name, "sheet": table.sheet, "range": table.range.a1,
                   "response": table.response, "layout": table.layout}
         analyses.append(ResponseAnalysis(source, result, values_fingerprint(blocks, treatments, values)))

@@ -189,7 +189,7 @@ def _open_workbook(path: Path, read_only, *, data_only: bool):
             wb = openpyxl.load_workbook(handle, read_only=read_only, data_only=data_only)
     except Exception as exc:  # openpyxl raises many types for damaged or foreign packages
         handle.close()
-        raise TrialInputError(f"The file {path.name!r} could not be read as an Excel workbook ({exc}). "
+        raise TrialInputError(f"The file {path.name!r} could not be read as an Excel workbook ({' '.join(str(exc).split())}). "
                               "Open it in a spreadsheet application and save it as .xlsx.") from exc
     return wb, handle
 
