@@ -16,7 +16,7 @@ EXIT_OK, EXIT_INTERNAL, EXIT_INPUT = 0, 1, 2
 COMPARE_METHODS = ("lsd", "tukey", "bonferroni", "holm", "dunnett")
 
 
-def _add_analysis_options(parser: argparse.ArgumentParser) -> None:
+def _add_analysis_options(parser: argparse.ArgumentParser, output: bool = True) -> None:
     read = parser.add_argument_group("reading the data")
     read.add_argument("--range", dest="range_text", required=True,
                       help="cells to analyse: 'Sheet'!B3:G9, a defined name or a table name")
@@ -44,6 +44,8 @@ def _add_analysis_options(parser: argparse.ArgumentParser) -> None:
     from workbook_tools.sheets.limits import add_limit_options
 
     add_limit_options(parser)
+    if not output:  # batch has its own output options
+        return
     out = parser.add_argument_group("output")
     out.add_argument("--out", type=Path, help="result workbook (default: BOOK-analysed.xlsx beside the input)")
     out.add_argument("--in-place", action="store_true",
@@ -73,6 +75,11 @@ def build_parser() -> argparse.ArgumentParser:
     from workbook_tools.jobs import add_run_parser
 
     add_run_parser(commands)
+    from workbook_tools.batch import add_batch_parser
+    from workbook_tools.service import add_serve_parser
+
+    add_batch_parser(commands)
+    add_serve_parser(commands)
     return parser
 
 
@@ -154,6 +161,14 @@ def main(argv=None) -> int:
             return run_analyze(args, say)
         if args.command == "demo":
             return run_demo(args, say)
+        if args.command == "batch":
+            from workbook_tools.batch import run_batch_command
+
+            return run_batch_command(args, say)
+        if args.command == "serve":
+            from workbook_tools.service import run_serve
+
+            return run_serve(args, say)
         if args.command == "run":
             from workbook_tools.jobs import run_command
 

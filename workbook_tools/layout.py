@@ -304,3 +304,38 @@ def table_by_key(result: dict, key: str) -> Table:
         "friedman": friedman_table, "notes": notes_table,
     }
     return builders[key](result)
+
+# ---------------------------------------------------------------- many workbooks (batch)
+
+BATCH_COLUMNS = (
+    ("file", Column("File", "text")), ("sheet", Column("Sheet", "text")), ("range", Column("Range", "text")),
+    ("response", Column("Response", "text")), ("f", Column("Treatment F", "ratio")),
+    ("p", Column("Treatment p-value", "p")), ("mse", Column("Error mean square")),
+    ("cv_percent", Column("CV %", "percent")), ("relative_efficiency", Column("Relative efficiency", "ratio")),
+    ("best_treatment", Column("Best treatment", "text")), ("best_mean", Column("Best adjusted mean")),
+    ("best_group", Column("Best treatment's group", "text")), ("warnings", Column("Warnings", "count")),
+    ("first_warning", Column("First warning", "text")), ("status", Column("Status", "text")),
+)
+"""Keys of a batch summary row and the column that shows each."""
+
+
+def batch_summary_table(rows: list[dict]) -> Table:
+    """One row per file and response of a batch run, in the order given."""
+    columns = tuple(column for _, column in BATCH_COLUMNS)
+    body = [[row.get(key) for key, _ in BATCH_COLUMNS] for row in rows]
+    return Table("batch", "Batch summary: one row per file and response", columns, body,
+                 "Best treatment: the one with the highest (or, with --best lowest, the lowest) adjusted mean. "
+                 "Status is 'done' or the reason the file was refused.")
+
+
+def batch_trend_table(rows: list[dict]) -> Table:
+    """CV % and relative efficiency of every response across files (one row per file, file order kept)."""
+    files = list(dict.fromkeys(row["file"] for row in rows))
+    responses = list(dict.fromkeys(row["response"] or "values" for row in rows if row["status"] == "done"))
+    found = {(row["file"], row["response"] or "values"): row for row in rows if row["status"] == "done"}
+    columns = (Column("File", "text"),) + tuple(Column(f"CV %: {r}", "percent") for r in responses) \
+        + tuple(Column(f"Relative efficiency: {r}", "ratio") for r in responses)
+    body = [[f] + [found.get((f, r), {}).get("cv_percent") for r in responses]
+            + [found.get((f, r), {}).get("relative_efficiency") for r in responses] for f in files]
+    return Table("trend", "Trend across files (file-name order)", columns, body,
+                 "A blank cell: the file was refused or has no such response.")

@@ -94,7 +94,14 @@ def _label_text(label: object, kind: str, position: int) -> str:
 
 
 def _unique_labels(labels, kind: str) -> list[str]:
-    texts = [_label_text(label, kind, i) for i, label in enumerate(labels)]
+    labels = list(labels)
+    if all(type(label) is str for label in labels):
+        texts = [label.strip() for label in labels]
+        if not all(texts):
+            empty = texts.index("")
+            raise TrialInputError(f"The {kind} label in position {empty + 1} is empty; give every {kind} a name.")
+    else:
+        texts = [_label_text(label, kind, i) for i, label in enumerate(labels)]
     seen: dict[str, int] = {}
     for i, text in enumerate(texts):
         if text in seen:

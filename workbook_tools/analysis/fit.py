@@ -105,6 +105,10 @@ class AdditiveSolver:
     def leverage(self) -> np.ndarray:
         """Hat-matrix diagonal: h = 1/k_b + (e_t - s_b)' C+ (e_t - s_b), s_b the block's share row."""
         d = self.design
+        if self.equal:
+            b, t = d.n_blocks, d.n_treatments
+            m = float(d.counts.flat[0])
+            return np.full(d.n, 1.0 / (t * m) + (t - 1) / (b * m * t))
         a = self.share @ self.c_plus                                 # (b, t)
         quad = np.einsum("bt,bt->b", a, self.share)
         cell = (1.0 / self.k)[:, None] + np.diag(self.c_plus)[None, :] - 2.0 * a + quad[:, None]
