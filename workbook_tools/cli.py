@@ -80,6 +80,9 @@ def build_parser() -> argparse.ArgumentParser:
 
     add_batch_parser(commands)
     add_serve_parser(commands)
+    from workbook_tools.plan import add_plan_parser
+
+    add_plan_parser(commands)
     return parser
 
 
@@ -173,6 +176,10 @@ def main(argv=None) -> int:
             from workbook_tools.jobs import run_command
 
             return run_command(args, say)
+        if args.command == "plan":
+            from workbook_tools.plan import run_plan_command
+
+            return run_plan_command(args, say)
     except TrialInputError as error:
         print(f"workbook-tools: {error}", file=sys.stderr)
         return EXIT_INPUT

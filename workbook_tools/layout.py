@@ -339,3 +339,90 @@ def batch_trend_table(rows: list[dict]) -> Table:
             + [found.get((f, r), {}).get("relative_efficiency") for r in responses] for f in files]
     return Table("trend", "Trend across files (file-name order)", columns, body,
                  "A blank cell: the file was refused or has no such response.")
+
+
+# ---------------------------------------------------------------- planning the next trial
+
+PLAN_TEST_TITLES = {
+    "f": "Overall F test",
+    "lsd": "Pairwise t test (LSD), one pair",
+    "tukey": "Tukey HSD, one pair",
+    "dunnett": "Dunnett against the control, one comparison",
+}
+PLAN_VALUE_HEADER = "Response"
+"""Header of the empty value column of the run order; the analysis reads it back with --response."""
+
+
+def plan_layout_table(layout: dict) -> Table:
+    """The wide grid to fill in: treatments across, blocks down, empty value cells.
+
+    ``grid()`` of this table (header row included) is exactly the range the
+    analysis reads back; the top-left cell is ignored by the reader.
+    """
+    columns = (Column("Block", "text"),) + tuple(Column(t) for t in layout["treatments"])
+    rows = [[block] + [None] * len(layout["treatments"]) for block in layout["blocks"]]
+    return Table("plan_layout", "Trial layout: one value per block and treatment", columns, rows,
+                 "Run the treatments of each block in the order on the run order sheet; type each result here.")
+
+
+def plan_run_order_table(layout: dict) -> Table:
+    """One row per run: block, run position, treatment, an empty response cell and the restriction flag."""
+    fixed = {(t, p) for t, positions in layout["fixed_positions"].items() for p in positions}
+    columns = (Column("Block", "text"), Column("Run in block", "count"), Column("Treatment", "text"),
+               Column(PLAN_VALUE_HEADER), Column("Fixed by restriction", "text"))
+    rows = [[block, position, treatment, None, "yes" if (treatment, position) in fixed else ""]
+            for block, order in zip(layout["blocks"], layout["run_orders"])
+            for position, treatment in enumerate(order, start=1)]
+    note = f"Randomised within each block; seed {layout['seed']}, generator {layout['generator']}."
+    if layout["restrictions"]:
+        note += " " + layout["restrictions"]
+    return Table("plan_run_order", "Run order", columns, rows, note)
+
+
+def plan_inputs_table(plan: dict, sigma2_source: str | None = None) -> Table:
+    """What the power calculation assumed."""
+    i = plan["inputs"]
+    rows = [["Smallest difference worth detecting", i["delta"]],
+            ["Error variance", i["sigma2"]],
+            ["Error variance from", sigma2_source or "typed in"],
+            ["Treatments", i["n_treatments"]],
+            ["Runs per block and treatment", i["replicates"]],
+            ["Blocks planned", i["n_blocks"]],
+            ["Significance level (alpha)", i["alpha"]],
+            ["Target power", i["power"]],
+            ["Alternative", i["alternative"]]]
+    return Table("plan_inputs", "What the power calculation assumes", (Column("Item", "text"), Column("Value")),
+                 rows, "The difference is placed least favourably: two treatments delta apart, the others "
+                       "midway, for the F test; one pair delta apart for the pairwise tests.")
+
+
+def blocks_needed_table(plan: dict) -> Table:
+    """Blocks needed per test, power there, and power and detectable difference with the planned blocks."""
+    planned = plan["inputs"]["n_blocks"]
+    columns = (Column("Test", "text"), Column("Blocks needed", "count"), Column("Error df", "count"),
+               Column("Power with that many blocks", "ratio"),
+               Column(f"Power with {planned} blocks" if planned else "Power with the planned blocks", "ratio"),
+               Column(f"Detectable difference with {planned} blocks" if planned
+                      else "Detectable difference with the planned blocks"))
+    rows = [[PLAN_TEST_TITLES.get(r["test"], r["test"]), r["blocks_needed"], r["error_df"], r["power_at_needed"],
+             r["power_at_planned"], r["detectable_at_planned"]] for r in plan["tests"]]
+    return Table("blocks_needed", f"Blocks needed for power {plan['inputs']['power']:g}", columns, rows,
+                 "Tukey and Dunnett: the power of one pair's test within the simultaneous procedure "
+                 "(familywise alpha), not the chance of finding every real difference.")
+
+
+def power_table_table(plan: dict) -> Table:
+    """Power against the number of blocks, one column per test."""
+    tests = [t["test"] for t in plan["tests"]]
+    columns = (Column("Blocks", "count"), Column("Error df", "count")) + tuple(
+        Column(f"Power: {PLAN_TEST_TITLES.get(t, t)}", "ratio") for t in tests)
+    rows = [[r["blocks"], r["error_df"]] + [r[t] for t in tests] for r in plan["power_table"]]
+    return Table("power_table", "Power against the number of blocks", columns, rows)
+
+
+def plan_audit_table(layout: dict, items: list[list]) -> Table:
+    """The seed, the generator, the restriction and the run's options, for the record."""
+    rows = [["Seed", str(layout["seed"])], ["Random generator", layout["generator"]],
+            ["Restriction", layout["restrictions"] or "none (complete randomisation within blocks)"]]
+    rows += [[str(k), "" if v is None else str(v)] for k, v in items]
+    return Table("plan_audit", "Audit record of the plan", (Column("Item", "text"), Column("Value", "text")), rows)
