@@ -9,6 +9,7 @@ few seconds. Tests are skipped, with the reason, when ``soffice`` is missing
 
 from __future__ import annotations
 
+import functools
 import os
 import re
 import shutil
@@ -38,6 +39,7 @@ def csv_every_sheet(*, as_shown: bool) -> str:
     return f"csv:{CSV_FILTER}:44,34,76,1,,0,false,true,{shown},false,false,-1"
 
 
+@functools.lru_cache(maxsize=None)
 def office_version() -> tuple[int, ...]:
     """LibreOffice's version as numbers, e.g. (7, 4, 7, 2); () when it cannot be told."""
     done = _run([SOFFICE, "--version"], None)
