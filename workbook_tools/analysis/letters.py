@@ -84,6 +84,32 @@ def _insert_absorb(significant: np.ndarray) -> np.ndarray:
     return _sweep(columns)
 
 
+def _runs_of_sorted_means(significant: np.ndarray, by_mean: np.ndarray) -> np.ndarray | None:
+    """Letters as maximal runs of mean-sorted treatments, when that is exact; else None.
+
+    When, in mean order, every treatment's non-significant partners form one unbroken
+    run that starts at the treatment itself and the runs' ends never move backwards,
+    the maximal runs are exactly the maximal groups of mutually non-differing
+    treatments, so they are the letters (and no letter is redundant). This is the usual
+    pattern with one common critical difference and is found in O(t^2).
+    """
+    t = by_mean.size
+    same = ~significant[np.ix_(by_mean, by_mean)]
+    upper = np.triu(same)
+    positions = np.arange(t)
+    end = np.where(upper, positions[None, :], -1).max(axis=1)
+    if np.any(np.diff(end) < 0):
+        return None
+    band = (positions[None, :] >= positions[:, None]) & (positions[None, :] <= end[:, None])
+    if not np.array_equal(band, upper):
+        return None
+    starts = np.flatnonzero(np.r_[True, end[1:] > end[:-1]])
+    columns = np.zeros((starts.size, t), dtype=bool)
+    for row, start in enumerate(starts):
+        columns[row, by_mean[start:end[start] + 1]] = True
+    return columns
+
+
 def _sweep(columns: np.ndarray) -> np.ndarray:
     """Remove letters that are not needed to keep every non-significant pair together.
 
@@ -137,8 +163,10 @@ def letter_matrix(means, significant) -> np.ndarray:
     significant = _validated(significant, t)
     if t == 0:
         return np.zeros((0, 0), dtype=bool)
-    columns = _insert_absorb(significant)
     by_mean = np.argsort(-np.where(np.isfinite(means), means, -np.inf), kind="stable")
+    columns = _runs_of_sorted_means(significant, by_mean)
+    if columns is None:
+        columns = _insert_absorb(significant)
     rank = np.empty(t, dtype=int)
     rank[by_mean] = np.arange(t)
     keys = [tuple(sorted(rank[np.flatnonzero(row)])) for row in columns]
