@@ -106,8 +106,7 @@ def active() -> Limits:
 
 def _raise_hint(field: str, value) -> str:
     option, factor, _ = OPTIONS[field]
-    shown = value / factor if factor != 1 else value
-    shown = f"{shown:g}" if isinstance(shown, float) else f"{shown:,}"
+    shown = f"{value / factor:.3g}" if factor != 1 else (f"{value:g}" if isinstance(value, float) else f"{value:,}")
     return f"(limit {option} {shown}; raise it only for files you trust)"
 
 
@@ -134,10 +133,6 @@ def _time_up_error() -> TrialInputError:
                               "was stopped; the file may be built to exhaust the reader")
 
 
-def _on_alarm(signum, frame):
-    raise _TimeUp()
-
-
 @contextlib.contextmanager
 def applied(limits: Limits | None = None):
     """Apply ``limits`` (and start its clock) for the reads inside the ``with`` block."""
@@ -145,15 +140,21 @@ def applied(limits: Limits | None = None):
     token = _ACTIVE.set(limits)
     deadline_token = _DEADLINE.set(time.monotonic() + limits.seconds)
     timer = (threading.current_thread() is threading.main_thread() and hasattr(signal, "setitimer"))
-    previous = None
-    if timer:
-        previous = signal.signal(signal.SIGALRM, _on_alarm)
-        signal.setitimer(signal.ITIMER_REAL, limits.seconds)
+    running = [True]
+
+    def on_alarm(signum, frame):
+        if running[0]:
+            raise _TimeUp()
+
+    previous = signal.signal(signal.SIGALRM, on_alarm) if timer else None
     try:
+        if timer:
+            signal.setitimer(signal.ITIMER_REAL, limits.seconds)
         yield limits
     except _TimeUp:
         raise _time_up_error() from None
     finally:
+        running[0] = False
         if timer:
             signal.setitimer(signal.ITIMER_REAL, 0)
             signal.signal(signal.SIGALRM, previous)
@@ -204,6 +205,10 @@ def check_package(path) -> None:
     _checked[key] = True
 
 
+def _size(n_bytes: int) -> str:
+    return f"{n_bytes / MB:,.1f} MB" if n_bytes >= MB else f"{n_bytes:,} bytes"
+
+
 def _not_xlsx(path: Path, what: str, advice: str = "Save it as an Excel workbook (.xlsx) and try again.") -> TrialInputError:
     return TrialInputError(f"The file {path.name!r} is {what}. {advice}")
 
@@ -213,7 +218,7 @@ def _check_file(path: Path, handle, size: int, limits: Limits) -> None:
         raise TrialInputError(f"The file {path.name!r} is empty (0 bytes): nothing was saved in it. "
                               "Save the workbook again and try again.")
     if size > limits.max_file_bytes:
-        raise _refuse("max_file_bytes", f"The file {path.name!r} is {size / MB:.1f} MB, larger than allowed", limits)
+        raise _refuse("max_file_bytes", f"The file {path.name!r} is {_size(size)}, larger than allowed", limits)
     start = handle.read(8)
     if start == _OLE_SIGNATURE or start.startswith(_OLE_SIGNATURE[:4]):
         raise _ole_kind(path, handle)
@@ -291,11 +296,12 @@ def _check_members(path: Path, archive: zipfile.ZipFile, members, limits: Limits
     for m in members:
         check_time()
         xml = scan.parser(m.filename) if m.filename.lower().endswith(_XML_ENDINGS) else None
-        count = 0
+        count, crc = 0, 0
         try:
             with archive.open(m) as stream:
                 while chunk := stream.read(_CHUNK):
                     count += len(chunk)
+                    crc = zlib.crc32(chunk, crc)
                     budget -= len(chunk)
                     if count > m.file_size or budget < 0:
                         raise _refuse("max_uncompressed_bytes", f"The member {m.filename!r} of {path.name!r} "
@@ -303,9 +309,12 @@ def _check_members(path: Path, archive: zipfile.ZipFile, members, limits: Limits
                     if xml is not None:
                         xml = scan.feed(xml, chunk)
                     check_time()
+            if crc != m.CRC:  # zipfile stops at the declared size: a member holding more fails here
+                raise zipfile.BadZipFile("its content does not match its checksum or its declared size")
             if xml is not None:
                 scan.feed(xml, b"", final=True)
-        except (zipfile.BadZipFile, zlib.error, EOFError, OSError, ValueError, NotImplementedError, RuntimeError) as exc:
+        except (zipfile.BadZipFile, zlib.error, EOFError, OSError, ValueError, NotImplementedError,
+                RuntimeError) as exc:
             raise _not_xlsx(path, f"damaged: its part {m.filename!r} cannot be unpacked ({exc})",
                             "Get a fresh copy or save it again from a spreadsheet application.") from None
     if scan.cells > limits.max_cells:
