@@ -105,12 +105,36 @@ def _write_json(data: dict, path: str) -> None:
     atomic_write_text(Path(path), text + "\n")
 
 
+def _refuse_json_over_workbooks(args) -> None:
+    """The JSON file must never replace the input workbook or the result workbook."""
+    if not args.json_path or args.json_path == "-":
+        return
+    from workbook_tools.analysis.errors import TrialInputError
+    from workbook_tools.sheets.safety import default_output_path
+
+    json_path = Path(args.json_path).resolve()
+    workbooks = [Path(args.book)]
+    if not args.no_workbook:
+        workbooks.append(Path(args.book) if args.in_place else (args.out or default_output_path(args.book)))
+    for workbook in workbooks:
+        if json_path == workbook.resolve():
+            raise TrialInputError(f"--json {args.json_path} would overwrite the workbook {workbook}; "
+                                  "choose another file name for the JSON.")
+
+
+def _p_text(p) -> str:
+    if p is None:
+        return "p n/a"
+    return "p < 0.0001" if p < 1e-4 else f"p = {p:.4f}"
+
+
 def run_analyze(args, say) -> int:
     from workbook_tools.sheets.book import analyses_json, analyse_book, write_analyses
 
     options = _options(args)
     from workbook_tools.sheets.limits import applied, limits_from_options
 
+    _refuse_json_over_workbooks(args)
     with applied(limits_from_options(args)):
         analyses = analyse_book(args.book, args.range_text, **options)
     data = analyses_json(analyses)
@@ -128,7 +152,7 @@ def run_analyze(args, say) -> int:
         label = analysis.source["response"] or analysis.source["range"]
         p = treatment["p"]
         say(f"  {label}: treatment F = {treatment['f'] if treatment['f'] is None else round(treatment['f'], 4)}, "
-            f"p = {'n/a' if p is None else ('< 0.0001' if p < 1e-4 else f'{p:.4f}')}; "
+            f"{_p_text(p)}; "
             f"{len(d['warnings'])} warning(s)")
     return EXIT_OK
 
@@ -164,6 +188,10 @@ def main(argv=None) -> int:
             return run_analyze(args, say)
         if args.command == "demo":
             return run_demo(args, say)
+        if args.command == "run":
+            from workbook_tools.jobs import run_command
+
+            return run_command(args, say)
         if args.command == "batch":
             from workbook_tools.batch import run_batch_command
 
@@ -172,10 +200,6 @@ def main(argv=None) -> int:
             from workbook_tools.service import run_serve
 
             return run_serve(args, say)
-        if args.command == "run":
-            from workbook_tools.jobs import run_command
-
-            return run_command(args, say)
         if args.command == "plan":
             from workbook_tools.plan import run_plan_command
 

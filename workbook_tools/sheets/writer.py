@@ -42,6 +42,13 @@ class Placement:
 
 def sheet_name(prefix: str, family: str, suffix: str | None, taken: set[str]) -> str:
     """A valid, unused sheet name ``prefix + family [+ ' ' + suffix]`` (at most 31 characters)."""
+    bad = sorted(set(prefix) & FORBIDDEN)
+    if bad or len(prefix) > MAX_SHEET_NAME - 12:
+        from workbook_tools.analysis.errors import TrialInputError
+
+        why = (f"contains {' '.join(bad)}, which sheet names cannot hold" if bad
+               else f"is longer than {MAX_SHEET_NAME - 12} characters")
+        raise TrialInputError(f"The sheet name prefix '{prefix}' {why}; choose another with --prefix.")
     base = f"{prefix}{family}"
     if suffix:
         clean = "".join("_" if ch in FORBIDDEN else ch for ch in suffix).strip("'") or "x"
