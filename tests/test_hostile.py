@@ -17,7 +17,7 @@ from pathlib import Path
 import openpyxl
 import pytest
 
-from tests.make_bad_inputs import grid_rows, save_rows
+from tests.make_bad_inputs import grid_rows
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.cli import EXIT_INPUT, EXIT_OK, main
 from workbook_tools.sheets import limits
@@ -33,7 +33,16 @@ LAUGHS = ('<?xml version="1.0"?>\n<!DOCTYPE lolz [<!ENTITY lol "lol">'
 
 
 def plain(folder: Path, name="trial.xlsx") -> Path:
-    return save_rows(folder, Path(name).stem, grid_rows())
+    """The standard trial written by xlsxwriter (which, unlike openpyxl, writes a shared string table)."""
+    import xlsxwriter
+
+    path = folder / name
+    workbook = xlsxwriter.Workbook(str(path))
+    sheet = workbook.add_worksheet("Trial")
+    for r, row in enumerate(grid_rows()):
+        sheet.write_row(r, 0, row)
+    workbook.close()
+    return path
 
 
 def rebuilt(path: Path, replace: dict[str, object], extra: dict[str, bytes] | None = None) -> Path:
@@ -173,7 +182,7 @@ def test_workbook_storing_more_cells_than_allowed(tmp_path):
 def test_huge_shared_string_table(tmp_path):
     entries = "".join("<si><t>x</t></si>" for _ in range(2_001))
     table = ('<sst xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main">' + entries + "</sst>")
-    path = rebuilt(plain(tmp_path), {}, {"xl/sharedStrings.xml": table.encode()})
+    path = rebuilt(plain(tmp_path), {"xl/sharedStrings.xml": table})
     message = refusal(path, "--max-shared-strings", "2000")
     assert "shared string table" in message and "--max-shared-strings 2,000" in message
 
