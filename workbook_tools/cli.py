@@ -8,6 +8,7 @@ them, so the command starts quickly.
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
 import sys
 from pathlib import Path
@@ -56,7 +57,7 @@ def _add_analysis_options(parser: argparse.ArgumentParser, output: bool = True) 
     out.add_argument("--no-workbook", action="store_true", help="do not write a result workbook (JSON only)")
 
 
-def build_parser() -> argparse.ArgumentParser:
+def build_parser(argv=None) -> argparse.ArgumentParser:
     from workbook_tools import __version__
 
     parser = argparse.ArgumentParser(
@@ -72,18 +73,29 @@ def build_parser() -> argparse.ArgumentParser:
     demo = commands.add_parser("demo", help="analyse a bundled sample workbook")
     demo.add_argument("--folder", type=Path, default=Path("workbook-tools-demo"),
                       help="where to put the sample and its result (default ./workbook-tools-demo)")
-    from workbook_tools.jobs import add_run_parser
-
-    add_run_parser(commands)
-    from workbook_tools.batch import add_batch_parser
-    from workbook_tools.service import add_serve_parser
-
-    add_batch_parser(commands)
-    add_serve_parser(commands)
-    from workbook_tools.plan import add_plan_parser
-
-    add_plan_parser(commands)
+    wanted = _command_in(argv)
+    for name, module, adder in EXTRA_COMMANDS:
+        if wanted in (None, name):  # import a command's module only when it may be used
+            getattr(importlib.import_module(module), adder)(commands)
     return parser
+
+
+# command name, module, function that adds its parser
+EXTRA_COMMANDS = (
+    ("run", "workbook_tools.jobs", "add_run_parser"),
+    ("batch", "workbook_tools.batch", "add_batch_parser"),
+    ("serve", "workbook_tools.service", "add_serve_parser"),
+    ("plan", "workbook_tools.plan", "add_plan_parser"),
+)
+
+
+def _command_in(argv) -> str | None:
+    """The subcommand named on the command line, or None when it cannot be told yet (help, errors)."""
+    words = sys.argv[1:] if argv is None else list(argv)
+    for word in words:
+        if not word.startswith("-"):
+            return word if word in {"analyze", "demo", *(name for name, _, _ in EXTRA_COMMANDS)} else None
+    return None
 
 
 def _options(args) -> dict:
@@ -174,7 +186,7 @@ def run_demo(args, say) -> int:
 
 
 def main(argv=None) -> int:
-    parser = build_parser()
+    parser = build_parser(argv)
     args = parser.parse_args(argv)
     quiet_stdout = getattr(args, "json_path", None) == "-"
 

@@ -70,7 +70,7 @@ from __future__ import annotations
 import functools
 
 import numpy as np
-from scipy import interpolate, optimize, special, stats
+from scipy import optimize, special, stats
 
 _SQRT2 = np.sqrt(2.0)
 _LOG_SQRT_2PI = 0.5 * np.log(2.0 * np.pi)
@@ -133,6 +133,8 @@ class _UniformQuintic:
     """
 
     def __init__(self, w, values):
+        from scipy import interpolate  # imported on first use: keeps the command line's start quick
+
         spline = interpolate.make_interp_spline(w, values, k=5)
         self.step = w[1] - w[0]
         self.cells = len(w) - 1
