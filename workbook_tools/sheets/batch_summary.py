@@ -75,6 +75,7 @@ def write_batch_summary(rows: list[dict], out_dir) -> tuple[Path, Path]:
         for index, (title, y_title, first_col) in enumerate(charts):
             chart = _trend_chart(trend, placement, first_col, n_responses, title, y_title)
             trend.add_chart(chart, trend.cell(3 + 20 * index, anchor_col).coordinate)
+    fit_to_page_width(trend)
 
     xlsx_path = out_dir / f"{SUMMARY_NAME}.xlsx"
     csv_path = out_dir / f"{SUMMARY_NAME}.csv"
