@@ -442,3 +442,66 @@ def test_plan_command_refuses_bad_options_with_exit_2(argv, tmp_path):
     code, _, err = _run(argv + ["--out", str(tmp_path / "x.xlsx")])
     assert code == 2 and err
     assert not (tmp_path / "x.xlsx").exists()
+
+
+# ------------------------------------------- worksheet functions and the job sheet
+
+def test_worksheet_blocks_needed_is_the_plan_table():
+    from workbook_tools.excel import functions as udf
+
+    grid = udf.WBT_BLOCKS_NEEDED(2.0, 1.5, "Control,A,B,C", None, 0.9, "f, tukey, dunnett", 5.0)
+    plan = plan_power(2.0, 1.5, 4, n_blocks=5, power=0.9, tests=("f", "tukey", "dunnett"))
+    assert grid == blocks_needed_table(plan).grid()
+    assert [row[1] for row in grid[1:]] == [blocks_needed(2.0, 1.5, 4, power=0.9, test=t)
+                                           for t in ("f", "tukey", "dunnett")]
+    table = udf.WBT_POWER_TABLE(2.0, 1.5, 4.0)
+    assert table[0][:2] == ["Blocks", "Error df"] and table[1][0] == 2
+    assert udf.WBT_BLOCKS_NEEDED("x", 1, 3) == [["The difference worth detecting must be a number; the cell "
+                                                 "holds 'x'."]]
+    assert "must be one of" in udf.WBT_BLOCKS_NEEDED(1, 1, 3, None, None, "anova")[0][0]
+
+
+def test_worksheet_run_order_repeats_the_seeded_layout():
+    from workbook_tools.excel import functions as udf
+
+    grid = udf.WBT_RUN_ORDER([["C", "A", "B"]], 3.0, 11.0, None, "C=1")
+    layout = randomised_layout(["C", "A", "B"], 3, fixed_positions={"C": 1}, seed=11)
+    assert [row[2] for row in grid[1:]] == [t for order in layout.run_orders for t in order]
+    assert udf.WBT_RUN_ORDER("A,B", 2, None) == [["Give the seed."]]
+
+
+def _job_book(path):
+    wb = openpyxl.Workbook()
+    ws = wb.active
+    ws.title = "wbt-jobs"
+    ws.append(["Range", "Kind", "Treatments", "Blocks", "Fixed", "Seed", "Delta", "Sigma2", "Tests"])
+    ws.append([None, "plan", "Control,A,B", None, "Control=1", None, 1.0, 0.2, "f, dunnett"])
+    ws.append([None, "plan", 3, None, None, 5, None, None, None])  # neither blocks nor delta
+    ws.append([None, "survey", 3, 4])
+    wb.save(path)
+
+
+def test_plan_rows_of_the_job_sheet(tmp_path):
+    from workbook_tools.jobs import run_file
+
+    _job_book(tmp_path / "jobs.xlsx")
+    outcomes, target = run_file(tmp_path / "jobs.xlsx", tmp_path / "out.xlsx")
+    assert outcomes[0].done and outcomes[0].sheets == ["wbt-plan 2"]
+    assert "number of blocks" in outcomes[1].status and "kind of job" in outcomes[2].status
+    wb = openpyxl.load_workbook(target)
+    assert {"Plan 2 layout", "Plan 2 run order", "wbt-plan 2"} <= set(wb.sheetnames)
+    seed = wb["wbt-jobs"]["F2"].value  # the drawn seed, written back into the row
+    needed = max(blocks_needed(1.0, 0.2, 3, test=t) for t in ("f", "dunnett"))
+    layout = randomised_layout(["Control", "A", "B"], needed, fixed_positions={"Control": 1}, seed=seed)
+    run_rows = [[c.value for c in row] for row in wb["Plan 2 run order"].iter_rows() if row[1].value in (1, 2, 3)]
+    assert [r[2] for r in run_rows] == [t for order in layout.run_orders for t in order]
+    # type values into the layout, run again: the typed sheet stays, the plan sheet is rewritten
+    ws = wb["Plan 2 layout"]
+    header = next(r for r in ws.iter_rows() if r[1].value == "Control")
+    ws.cell(header[0].row + 1, 2, 12.5)
+    wb.save(target)
+    again, _ = run_file(target, tmp_path / "again.xlsx")
+    assert again[0].done
+    wb2 = openpyxl.load_workbook(tmp_path / "again.xlsx")
+    assert wb2["Plan 2 layout"].cell(header[0].row + 1, 2).value == 12.5
+    assert wb2.sheetnames.count("wbt-plan 2") == 1

@@ -7,7 +7,8 @@ analyses every response, writes the result sheets exactly as
 ``workbook-tools analyze`` does, and fills each row's ``Status`` ("done" or the
 message), ``Ran at (UTC)`` and ``Sheets written``. The sheets listed under
 ``Sheets written`` (and those recorded in the workbook as made by the tool)
-are replaced on the next run; no other sheet is ever removed.
+are replaced on the next run; no other sheet is ever removed. A row with
+``Kind`` = ``plan`` plans the next trial instead (see :mod:`workbook_tools.plan_jobs`).
 """
 
 from __future__ import annotations
@@ -19,6 +20,8 @@ from pathlib import Path
 from workbook_tools.analysis.compare import METHODS
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.layout import SheetPlan, sheet_plans
+from workbook_tools.plan_jobs import (ANALYSIS_KINDS, PLAN_COLUMNS, PLAN_KIND, PlanJob, parse_kind, parse_plan_job,
+                                      plan_sheet_name, prepare_plan, write_plan)
 from workbook_tools.ports import WorkbookPort
 from workbook_tools.sheets.book import (DEFAULT_PREFIX, ResponseAnalysis, _context_lines, _ordered_records,
                                         audit_table, values_fingerprint)
@@ -28,7 +31,7 @@ from workbook_tools.sheets.writer import FORBIDDEN, sheet_name
 
 JOB_SHEET = "wbt-jobs"
 COLUMNS = ("Range", "Layout", "Block", "Treatment", "Responses", "Compare", "Alpha", "Control", "Prefix",
-           "Status", "Ran at (UTC)", "Sheets written")
+           "Status", "Ran at (UTC)", "Sheets written") + PLAN_COLUMNS
 STATUS_COLUMNS = ("Status", "Ran at (UTC)", "Sheets written")
 DONE = "done"
 TIME_FORMAT = "yyyy-mm-dd hh:mm:ss"
@@ -119,7 +122,7 @@ def parse_job_sheet(rows: list[list], sheet: str = JOB_SHEET) -> JobSheet:
             return row[j - 1] if j is not None and j - 1 < len(row) else None
 
         written += [n.strip() for n in _text(get("Sheets written")).split(_SHEET_LIST_SEPARATOR.strip()) if n.strip()]
-        if get("Range") is None or not _text(get("Range")):
+        if not _text(get("Range")) and _text(get("Kind")).casefold() in ANALYSIS_KINDS:
             continue
         try:
             entries.append((i + 1, _job(i + 1, get, columns, sheet)))
@@ -192,6 +195,8 @@ def _job(row: int, get, columns: dict[str, int], sheet: str) -> Job:
     def label(name: str):
         return parse(name, lambda value: _label(value, name.lower()))
 
+    if parse("Kind", parse_kind) == PLAN_KIND:
+        return parse_plan_job(row, parse, columns, parse("Alpha", parse_alpha), parse("Prefix", parse_prefix))
     layout, transposed = parse("Layout", parse_layout)
     return Job(row, label("Range"), layout, transposed, label("Block"), label("Treatment"),
                parse("Responses", parse_names), parse("Compare", parse_compare), parse("Alpha", parse_alpha),
@@ -269,7 +274,8 @@ def run(port: WorkbookPort, *, sheet: str = JOB_SHEET, now: dt.datetime | None =
             analysed.append((row, None, None, str(entry)))
             continue
         try:
-            analysed.append((row, entry, analyse_job(port, entry), DONE))
+            work = prepare_plan(entry) if isinstance(entry, PlanJob) else analyse_job(port, entry)
+            analysed.append((row, entry, work, DONE))
         except TrialInputError as error:
             analysed.append((row, entry, None, str(error)))
     previous = {n.casefold() for n in [*port.tool_sheets(), *jobs.sheets_written]} - {sheet.casefold()}
@@ -277,12 +283,17 @@ def run(port: WorkbookPort, *, sheet: str = JOB_SHEET, now: dt.datetime | None =
     taken = {n for n in existing if n.casefold() not in previous}
     planned, outcomes = [], []
     for row, job, analyses, status in analysed:
-        sheets = _name_sheets(job, analyses, taken) if analyses else []
+        if isinstance(job, PlanJob):
+            sheets = [(None, plan_sheet_name(job, taken), None)] if analyses else []
+        else:
+            sheets = _name_sheets(job, analyses, taken) if analyses else []
         planned.append((job, analyses, sheets))
         outcomes.append(JobOutcome(row, status, [name for _, name, _ in sheets]))
     port.remove_sheets([n for n in existing if n.casefold() in previous])
     for job, analyses, sheets in planned:
-        if sheets:
+        if sheets and isinstance(job, PlanJob):
+            write_plan(port, analyses, sheets[0][1], stamp, jobs.sheet)
+        elif sheets:
             _write_job(port, job, analyses, sheets, stamp, jobs.sheet)
     _write_statuses(port, jobs, outcomes, when)
     port.save([name for outcome in outcomes for name in outcome.sheets])

@@ -52,27 +52,49 @@ def add_plan_parser(commands) -> argparse.ArgumentParser:
     return plan
 
 
-def _labels_or_count(text: str | None):
-    if text is None:
+def parse_labels_or_count(value):
+    """Labels from ``"A,B,C"`` or a list of cells, or a count from ``5`` / ``"5"`` / ``5.0``; None when blank."""
+    if value is None or isinstance(value, bool):
         return None
-    text = text.strip()
+    if isinstance(value, (list, tuple)):
+        cells = [v for row in value for v in (row if isinstance(row, (list, tuple)) else [row])]
+        labels = [str(v).strip() for v in cells if v is not None and str(v).strip()]
+        return labels or None
+    if isinstance(value, float) and value.is_integer():
+        return int(value)
+    text = str(value).strip()
+    if not text:
+        return None
     if text.isdigit():
         return int(text)
     return [part.strip() for part in text.split(",")]
 
 
-def _fixed_positions(items: list[str]) -> dict:
+def parse_fixed_positions(items) -> dict:
+    """``["Control=1", "A=2,5"]`` (or one text with ``;`` between items) -> ``{"Control": [1], "A": [2, 5]}``."""
+    if isinstance(items, str):
+        items = [part for part in items.split(";") if part.strip()]
     fixed = {}
-    for item in items:
-        name, sep, positions = item.rpartition("=")
+    for item in items or []:
+        name, sep, positions = str(item).rpartition("=")
         try:
             numbers = [int(p) for p in positions.split(",")]
         except ValueError:
             numbers = None
         if not sep or not name.strip() or not numbers:
-            raise TrialInputError(f"--fixed takes TREATMENT=POSITION, like \"Control=1\", not {item!r}.")
+            raise TrialInputError(f"A fixed position is written TREATMENT=POSITION, like \"Control=1\", "
+                                  f"not {item!r}.")
         fixed[name.strip()] = numbers
     return fixed
+
+
+def parse_tests(value) -> list[str]:
+    """Test keys from ``"f, tukey"`` (blank: ``["f"]``)."""
+    tests = [t.strip().casefold() for t in str(value or "").replace(";", ",").split(",") if t.strip()]
+    for test in tests:
+        if test not in TESTS:
+            raise TrialInputError(f"The test must be one of {', '.join(TESTS)}, not {test!r}.")
+    return tests or ["f"]
 
 
 def _read_result(path: Path) -> dict:
@@ -84,40 +106,55 @@ def _read_result(path: Path) -> dict:
         raise TrialInputError(f"Could not read '{path}' as a JSON result: {error}.") from None
 
 
+def make_plan(treatments, blocks, *, replicates=1, fixed=None, seed=None, delta=None, sigma2=None, alpha=0.05,
+              power=0.8, tests=("f",), alternative="two-sided", max_blocks=1000):
+    """The layout and (with ``delta``) the power plan that every front end shows.
+
+    ``treatments`` and ``blocks`` are labels or counts; without ``blocks`` the
+    most blocks any of ``tests`` needs. Returns ``(Layout, plan dict or None)``.
+    """
+    from workbook_tools.analysis import planning
+
+    if treatments is None:
+        raise TrialInputError("Give the treatments (labels or their number), or take them from an earlier result.")
+    power_plan = None
+    if delta is not None:
+        if sigma2 is None:
+            raise TrialInputError("Give the error variance (sigma2), or take it from an earlier analysis "
+                                  "(--from-result RESULT.json on the command line).")
+        n_treatments = treatments if isinstance(treatments, int) else len(treatments)
+        common = dict(alpha=alpha, power=power, alternative=alternative, replicates=replicates)
+        if blocks is None:
+            blocks = max(planning.blocks_needed(delta, sigma2, n_treatments, test=test, max_blocks=max_blocks,
+                                                **common) for test in tests)
+        n_blocks = blocks if isinstance(blocks, int) else len(blocks)
+        power_plan = planning.plan_power(delta, sigma2, n_treatments, n_blocks=n_blocks, tests=tests,
+                                         max_blocks=max_blocks, **common)
+    if blocks is None:
+        raise TrialInputError("Give the number of blocks, or the difference worth detecting and the error "
+                              "variance to work it out.")
+    layout = planning.randomised_layout(treatments, blocks, replicates=replicates, fixed_positions=fixed, seed=seed)
+    return layout, power_plan
+
+
 def run_plan_command(args, say) -> int:
     """Run ``workbook-tools plan``; returns the exit code."""
     from workbook_tools.analysis import planning
     from workbook_tools.layout import PLAN_TEST_TITLES
     from workbook_tools.sheets.plan_book import LAYOUT_SHEET, RUN_ORDER_SHEET, write_plan_book
 
-    sigma2, source, treatments = args.sigma2, None, _labels_or_count(args.treatments)
+    sigma2, source, treatments = args.sigma2, None, parse_labels_or_count(args.treatments)
     if args.from_result is not None:
         inputs = planning.planning_inputs_from_result(_read_result(args.from_result), args.response)
         sigma2, source = inputs["sigma2"], f"{inputs['source']} ('{args.from_result.name}')"
         treatments = treatments if treatments is not None else inputs["treatments"]
-    if treatments is None:
-        raise TrialInputError("Give the treatments with --treatments (labels or a count) or --from-result.")
-    blocks = _labels_or_count(args.blocks)
     tests = args.tests or ["f"]
     if args.delta is None and (args.sigma2 is not None or args.from_result is not None or args.tests):
         raise TrialInputError("Give --delta, the smallest difference worth detecting, to work out power.")
-    if args.delta is not None and sigma2 is None:
-        raise TrialInputError("Give the error variance with --sigma2 or take it from an earlier analysis "
-                              "with --from-result RESULT.json.")
-    n_treatments = treatments if isinstance(treatments, int) else len(treatments)
-    power_plan = None
-    if args.delta is not None:
-        common = dict(alpha=args.alpha, power=args.power, alternative=args.alternative, replicates=args.replicates)
-        if blocks is None:
-            blocks = max(planning.blocks_needed(args.delta, sigma2, n_treatments, test=test,
-                                                max_blocks=args.max_blocks, **common) for test in tests)
-        n_blocks = blocks if isinstance(blocks, int) else len(blocks)
-        power_plan = planning.plan_power(args.delta, sigma2, n_treatments, n_blocks=n_blocks, tests=tests,
-                                         max_blocks=args.max_blocks, **common)
-    if blocks is None:
-        raise TrialInputError("Give the number of blocks with --blocks, or --delta with --sigma2 to work it out.")
-    layout = planning.randomised_layout(treatments, blocks, replicates=args.replicates,
-                                        fixed_positions=_fixed_positions(args.fixed), seed=args.seed)
+    layout, power_plan = make_plan(treatments, parse_labels_or_count(args.blocks), replicates=args.replicates,
+                                   fixed=parse_fixed_positions(args.fixed), seed=args.seed, delta=args.delta,
+                                   sigma2=sigma2, alpha=args.alpha, power=args.power, tests=tests,
+                                   alternative=args.alternative, max_blocks=args.max_blocks)
     options = {"treatments": args.treatments, "blocks": args.blocks, "replicates": args.replicates,
                "fixed": ", ".join(args.fixed) or None, "seed": args.seed, "delta": args.delta,
                "sigma2": args.sigma2, "from_result": args.from_result, "alpha": args.alpha, "power": args.power,

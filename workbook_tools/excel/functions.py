@@ -248,3 +248,83 @@ def missing_estimate(result: dict, block: str | None, treatment: str | None):
             return cell["estimate"]
     raise TrialInputError(f"Block {block!r}, treatment {treatment!r} holds a value; only a missing cell has an "
                           "estimate.")
+
+
+# ---------------------------------------------------------------- planning the next trial
+
+ARGUMENT_DOCS.update({
+    "delta": "Smallest difference between two treatment means worth detecting.",
+    "sigma2": "Error variance, e.g. the error mean square of an earlier trial (see WBT_SUMMARY).",
+    "treatments": "Treatment labels (a range, or text such as \"A,B,C\") or their number.",
+    "blocks": "Block labels (a range or text) or their number; for power, the blocks planned (optional).",
+    "power": "Target power (default 0.8).",
+    "tests": "Tests to plan for: f, lsd, tukey, dunnett, separated by commas (default f).",
+    "seed": "Seed of the randomisation; required, so the layout stays the same on recalculation.",
+    "replicates": "Runs of each treatment in each block (default 1).",
+    "fixed": "Fixed run positions in every block, such as \"Control=1\" (several separated by semicolons).",
+})
+
+
+def _count(labels_or_count) -> int:
+    return labels_or_count if isinstance(labels_or_count, int) else len(labels_or_count)
+
+
+def _power_plan(delta, sigma2, treatments, alpha, power, tests, blocks, replicates=None) -> dict:
+    from workbook_tools.analysis.planning import plan_power
+    from workbook_tools.plan import parse_labels_or_count, parse_tests
+    from workbook_tools.plan_jobs import parse_number
+
+    treatment_spec = parse_labels_or_count(treatments)
+    if treatment_spec is None:
+        raise TrialInputError("Give the treatments: their labels or their number.")
+    block_spec = parse_labels_or_count(blocks)
+    return plan_power(parse_number(delta, "difference worth detecting", required=True),
+                      parse_number(sigma2, "error variance", required=True), _count(treatment_spec),
+                      n_blocks=None if block_spec is None else _count(block_spec),
+                      alpha=parse_alpha(alpha), power=parse_number(power, "target power", 0.8),
+                      tests=parse_tests(tests), replicates=parse_number(replicates, "number of replicates", 1,
+                                                                        whole=True))
+
+
+def _planning_grid(build) -> list[list]:
+    try:
+        grid = build().grid()
+    except TrialInputError as error:
+        return [[str(error)]]
+    return [[_cell(v) for v in row] for row in grid]
+
+
+@_worksheet_function
+def WBT_BLOCKS_NEEDED(delta, sigma2, treatments, alpha=None, power=None, tests=None, blocks=None):
+    """Blocks needed per test for the target power; power and detectable difference with the planned blocks."""
+    from workbook_tools.layout import blocks_needed_table
+
+    return _planning_grid(lambda: blocks_needed_table(
+        _power_plan(delta, sigma2, treatments, alpha, power, tests, blocks)))
+
+
+@_worksheet_function
+def WBT_POWER_TABLE(delta, sigma2, treatments, alpha=None, power=None, tests=None, blocks=None):
+    """Power against the number of blocks, one column per test."""
+    from workbook_tools.layout import power_table_table
+
+    return _planning_grid(lambda: power_table_table(
+        _power_plan(delta, sigma2, treatments, alpha, power, tests, blocks)))
+
+
+@_worksheet_function
+def WBT_RUN_ORDER(treatments, blocks, seed, replicates=None, fixed=None):
+    """A randomised run order within each block (block, run, treatment, response to fill in), from a seed."""
+    from workbook_tools.analysis.planning import randomised_layout
+    from workbook_tools.layout import plan_run_order_table
+    from workbook_tools.plan import parse_fixed_positions, parse_labels_or_count
+    from workbook_tools.plan_jobs import parse_number
+
+    def build():
+        layout = randomised_layout(parse_labels_or_count(treatments) or 0, parse_labels_or_count(blocks) or 0,
+                                   replicates=parse_number(replicates, "number of replicates", 1, whole=True),
+                                   fixed_positions=parse_fixed_positions(fixed),
+                                   seed=parse_number(seed, "seed", whole=True, required=True))
+        return plan_run_order_table(layout.to_dict())
+
+    return _planning_grid(build)
