@@ -19,7 +19,7 @@ from xml.parsers import expat
 from openpyxl.utils import get_column_letter
 
 from workbook_tools.sheets.ranges import CellRange
-from workbook_tools.sheets.safety import _sheet_parts
+from workbook_tools.sheets.safety import sheet_parts
 
 _CHUNK = 256 * 1024
 _SHOWN = 8
@@ -50,7 +50,7 @@ def hidden_lines(path, rng: CellRange) -> tuple[list[int], list[int]]:
     """
     rows, cols = set(), set()
     with zipfile.ZipFile(Path(path)) as package:
-        part = next((p for p, name in _sheet_parts(package).items() if name == rng.sheet), None)
+        part = next((p for p, name in sheet_parts(package).items() if name == rng.sheet), None)
         if part is None or part not in package.namelist():
             return [], []
         parser = expat.ParserCreate()

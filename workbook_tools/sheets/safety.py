@@ -152,7 +152,7 @@ def _rels_of(package: zipfile.ZipFile, part: str) -> list[tuple[str, str]]:
     return found
 
 
-def _sheet_parts(package: zipfile.ZipFile) -> dict[str, str]:
+def sheet_parts(package: zipfile.ZipFile) -> dict[str, str]:
     """Worksheet and chartsheet part name -> sheet name, from the workbook and its relationships."""
     workbook = _xml(package, "xl/workbook.xml")
     if workbook is None:
@@ -250,7 +250,7 @@ def what_would_be_lost(path) -> list[str]:
             lost += [words for prefix, words in _PART_WORDS.items() if lower.startswith(prefix)]
             if _CHARTEX.fullmatch(lower):
                 lost.append("a newer chart type (waterfall, histogram, map and the like)")
-        sheets = _sheet_parts(package)
+        sheets = sheet_parts(package)
         for part, sheet in sheets.items():
             lost += _sheet_losses(package, part, sheet)
         for part in ("xl/workbook.xml", "xl/styles.xml"):
