@@ -18,7 +18,18 @@ from openpyxl.worksheet.table import Table
 
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.sheets.ranges import CellRange, parse_range_text, resolve_range
+from workbook_tools.sheets import reader
 from workbook_tools.sheets.reader import read_trials
+
+
+@pytest.fixture(autouse=True, params=["openpyxl", "calamine"])
+def reading_route(request, monkeypatch):
+    """Every reading test runs twice: through openpyxl and through the calamine + byte-scan route
+    that large sheets take (forced here by lowering its size threshold)."""
+    if request.param == "calamine":
+        pytest.importorskip("python_calamine")
+        monkeypatch.setattr(reader, "FAST_SHEET_BYTES", -1)
+    return request.param
 
 WIDE = [
     ["Yield t/ha", "Control", "Low N", "High N"],

@@ -26,7 +26,7 @@ from openpyxl.worksheet.formula import ArrayFormula, DataTableFormula
 
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.sheets import limits
-from workbook_tools.sheets.ranges import CellRange, cell_address, resolve_range
+from workbook_tools.sheets.ranges import CellRange, cell_address, parse_a1, parse_range_text, resolve_range
 
 LARGE_FILE_BYTES = 5 * 1024 * 1024
 """Files bigger than this are read in openpyxl's streaming (read-only) mode."""
@@ -124,7 +124,11 @@ def _check_layout(layout) -> None:
 
 
 def _read_grid(path: Path, range_text, read_only) -> "_Grid":
-    wb, handle = _open_workbook(path, read_only, data_only=True)
+    _check_file(path)
+    fast = _read_grid_fast(path, range_text, read_only)
+    if fast is not None:
+        return fast
+    wb, handle = _open_workbook(path, read_only, data_only=True, checked=True)
     try:
         rng = resolve_range(wb, range_text)
         ws = wb[rng.sheet]
@@ -136,6 +140,60 @@ def _read_grid(path: Path, range_text, read_only) -> "_Grid":
         handle.close()
     _check_calculated(path, grid, recalc_on_open)
     return grid
+
+
+FAST_SHEET_BYTES = 1024 * 1024
+"""Sheets whose XML is larger than this are read through python-calamine (see fast_grid)."""
+
+
+def _read_grid_fast(path: Path, range_text, read_only) -> "_Grid | None":
+    """The calamine route for a large sheet and a range given by cell references.
+
+    The package has passed `_check_file` already.
+
+    Returns None when the route does not apply (small sheet, a name or table instead of
+    cell references, calamine not installed, cells it cannot place): openpyxl then reads.
+    """
+    if read_only is False:
+        return None
+    sheet, ref = parse_range_text(str(range_text))
+    bounds = parse_a1(ref)
+    if bounds is None:
+        return None
+    try:
+        import python_calamine  # noqa: F401
+    except ImportError:
+        return None
+    from workbook_tools.sheets import fast_grid
+    from workbook_tools.sheets.safety import sheet_parts
+
+    with zipfile.ZipFile(path) as package:
+        sheet = sheet or fast_grid.active_sheet(package)
+        part = next((p for p, name in sheet_parts(package).items() if name == sheet), None)
+        if part is None or part not in package.namelist() or package.getinfo(part).file_size <= FAST_SHEET_BYTES:
+            return None
+    rng = CellRange(sheet, *bounds)
+    limits.check_cells(rng.sheet, rng.a1, rng.max_row - rng.min_row + 1, rng.max_col - rng.min_col + 1)
+    try:
+        read = fast_grid.read_cells(path, rng)
+    except LookupError:
+        return None
+    limits.check_time()
+    _refuse_merged([((c0, r0, c1, r1), f"{cell_address(r0, c0)}:{cell_address(r1, c1)}")
+                    for r0, c0, r1, c1 in read.merged], rng)
+    grid = _Grid(rng, read.rows)
+    uncalculated = sorted((r, c) for (r, c), stored in read.scan.formulas.items()
+                          if rng.min_row <= r <= rng.max_row and rng.min_col <= c <= rng.max_col
+                          and (stored is None or (read.scan.recalc_on_open and _is_zero_text(stored))))
+    _refuse_uncalculated(grid, [cell_address(r, c) for r, c in uncalculated])
+    return grid
+
+
+def _is_zero_text(stored: str) -> bool:
+    try:
+        return float(stored) == 0.0
+    except ValueError:
+        return False
 
 
 def _trials(grid: "_Grid", layout, transposed, block, treatment, responses, text_numbers,
@@ -161,8 +219,8 @@ def _trials(grid: "_Grid", layout, transposed, block, treatment, responses, text
 
 # ---------------------------------------------------------------- the file
 
-def _open_workbook(path: Path, read_only, *, data_only: bool):
-    """Open ``path`` for reading; returns the workbook and the file handle to close after it."""
+def _check_file(path: Path) -> None:
+    """Refuse what is not a readable workbook package, before anything parses it."""
     if not path.exists():
         raise TrialInputError(f"The file {str(path)!r} does not exist. Check the name and folder.")
     if path.is_dir():
@@ -180,6 +238,15 @@ def _open_workbook(path: Path, read_only, *, data_only: bool):
         if "mimetype" in archive.namelist() and b"opendocument" in archive.read("mimetype"):
             raise TrialInputError(f"The file {path.name!r} is an OpenDocument spreadsheet (.ods). "
                                   "Save it as an Excel workbook (.xlsx) and try again.")
+
+
+def _open_workbook(path: Path, read_only, *, data_only: bool, checked: bool = False):
+    """Open ``path`` for reading; returns the workbook and the file handle to close after it.
+
+    ``checked``: the package has already passed `_check_file`.
+    """
+    if not checked:
+        _check_file(path)
     if read_only is None:
         read_only = path.stat().st_size > LARGE_FILE_BYTES
     handle = open(path, "rb")  # a handle, so that any file name ending is accepted
@@ -339,7 +406,12 @@ def _number_like(value, data_type) -> bool:
 
 def _check_merged(wb, ws, rng: CellRange) -> None:
     """Refuse merged cells that overlap the range anywhere but its (ignored) top-left cell."""
-    for bounds, text in _merged_ranges(wb, ws):
+    _refuse_merged(_merged_ranges(wb, ws), rng)
+
+
+def _refuse_merged(merged, rng: CellRange) -> None:
+    """``merged``: ``((min_col, min_row, max_col, max_row), "A1:B2")`` for each merged range."""
+    for bounds, text in merged:
         min_col, min_row, max_col, max_row = bounds
         top, left = max(min_row, rng.min_row), max(min_col, rng.min_col)
         bottom, right = min(max_row, rng.max_row), min(max_col, rng.max_col)
@@ -383,7 +455,7 @@ def _check_calculated(path: Path, grid: _Grid, recalc_on_open: bool) -> None:
                 if value is None or (recalc_on_open and type(value) in (int, float) and value == 0)}
     if not suspects:
         return
-    wb, handle = _open_workbook(path, True, data_only=False)
+    wb, handle = _open_workbook(path, True, data_only=False, checked=True)
     try:
         formulas = _Grid.read(wb[grid.rng.sheet], grid.rng)
     finally:
@@ -394,6 +466,11 @@ def _check_calculated(path: Path, grid: _Grid, recalc_on_open: bool) -> None:
         value, _ = formulas.value(i, j)
         if isinstance(value, (ArrayFormula, DataTableFormula)) or (isinstance(value, str) and value.startswith("=")):
             found.append(grid.address(i, j))
+    _refuse_uncalculated(grid, found)
+
+
+def _refuse_uncalculated(grid: "_Grid", found: list[str]) -> None:
+    """Stop with one message naming the formula cells that have no stored result."""
     if found:
         more = f" and {len(found) - _SHOWN} more" if len(found) > _SHOWN else ""
         grid.fail(
