@@ -27,7 +27,7 @@ from PIL import Image
 
 from tests.make_bad_inputs import grid_rows
 from workbook_tools.cli import EXIT_INPUT, EXIT_OK, main
-from workbook_tools.sheets.safety import _rels_of, _sheet_parts, default_output_path
+from workbook_tools.sheets.safety import _rels_of, default_output_path, sheet_parts
 
 RANGE = ("--range", "Trial!A1:D5", "--layout", "wide")
 
@@ -171,7 +171,7 @@ def part_facts(path: Path, sheets) -> dict:
         names = set(package.namelist())
         if "xl/vbaProject.bin" in names:
             facts["vba"] = hashlib.sha256(package.read("xl/vbaProject.bin")).hexdigest()
-        for part, sheet in _sheet_parts(package).items():
+        for part, sheet in sheet_parts(package).items():
             if sheet in sheets:
                 facts[sheet] = _related(package, part, names)
     return facts
