@@ -23,12 +23,11 @@ from workbook_tools.sheets.safety import sheet_parts
 _PREFIX = rb"(?:[A-Za-z_][\w.-]*:)?"
 _CELL_START = re.compile(rb"<" + _PREFIX + rb"c(?=[\s>/])([^>]*?)(/?)>")
 _REF = re.compile(rb'\br="([A-Z]{1,3})([0-9]{1,7})"')
-_ERROR_CELL = re.compile(rb"<" + _PREFIX + rb'c\s[^>]*?\bt="e"[^>]*>')
 _FORMULA = re.compile(rb"<" + _PREFIX + rb"f(?=[\s>/])")
 _VALUE = re.compile(rb"<" + _PREFIX + rb"v>(.*?)</" + _PREFIX + rb"v>", re.S)
 _CELL_END = re.compile(rb"</" + _PREFIX + rb"c>")
+_BLANK = (None, "n")
 _FULL_CALC = re.compile(rb'fullCalcOnLoad="(?:1|true)"')
-_CELL_WITHOUT_REF = re.compile(rb"<" + _PREFIX + rb"c(?=[\s>/])(?![^>]*\br=)")
 
 
 def active_sheet(package: zipfile.ZipFile) -> str | None:
@@ -59,7 +58,7 @@ class SheetScan:
     errors: dict = field(default_factory=dict)       # (row, col) -> error text, e.g. "#N/A"
     formulas: dict = field(default_factory=dict)     # (row, col) -> stored result text or None
     recalc_on_open: bool = False
-    complete: bool = True                            # False: a cell without an address was seen
+    complete: bool = True                            # False: an error or formula cell had no address
 
 
 def _sheet_bytes(package: zipfile.ZipFile, sheet: str) -> bytes:
@@ -85,14 +84,19 @@ def scan_sheet(path, sheet: str) -> SheetScan:
             scan.recalc_on_open = bool(_FULL_CALC.search(package.read("xl/workbook.xml")))
         except KeyError:
             scan.recalc_on_open = False
-    for match in _ERROR_CELL.finditer(data):
-        where = _cell_ref(match.group(0))
-        if where is None:
-            scan.complete = False
-            continue
-        end = _CELL_END.search(data, match.end())
-        value = _VALUE.search(data, match.end(), end.start() if end else len(data))
-        scan.errors[where] = value.group(1).decode("utf-8", "replace") if value else "#N/A"
+    position = data.find(b't="e"')
+    while position >= 0:
+        start = data.rfind(b"<", 0, position)
+        cell = _CELL_START.match(data, start)
+        if cell is not None and cell.end() > position:     # the attribute belongs to a cell's start tag
+            where = _cell_ref(cell.group(1))
+            if where is None:
+                scan.complete = False
+            else:
+                end = _CELL_END.search(data, cell.end())
+                value = _VALUE.search(data, cell.end(), end.start() if end else len(data))
+                scan.errors[where] = value.group(1).decode("utf-8", "replace") if value else "#N/A"
+        position = data.find(b't="e"', position + 5)
     for match in _FORMULA.finditer(data):
         start = data.rfind(b"<", 0, match.start())
         while start > 0 and not _CELL_START.match(data, start):
@@ -105,8 +109,6 @@ def scan_sheet(path, sheet: str) -> SheetScan:
         end = _CELL_END.search(data, match.end())
         value = _VALUE.search(data, match.end(), end.start() if end else len(data))
         scan.formulas[where] = value.group(1).decode("utf-8", "replace") if value else None
-    if _CELL_WITHOUT_REF.search(data):
-        scan.complete = False
     return scan
 
 
@@ -142,15 +144,14 @@ def read_cells(path, rng: CellRange) -> FastRead:
     width = max((len(r) for r in values), default=0)
     last_col = min(rng.max_col, width)
     errors = scan.errors
+    first, stop = rng.min_col - 1, last_col
     for r in range(rng.min_row, last_row + 1):
-        source = values[r - 1]
-        row = []
-        for c in range(rng.min_col, last_col + 1):
-            value = source[c - 1] if c <= len(source) else ""
-            if value == "" and type(value) is str:
-                code = errors.get((r, c))
-                row.append((code, "e") if code is not None else (None, "n"))
-            else:
-                row.append((value, "n"))
+        row = [(v, "n") if v.__class__ is not str or v else _BLANK for v in values[r - 1][first:stop]]
         rows.append(row)
+    for (r, c), code in errors.items():
+        if rng.min_row <= r <= last_row and rng.min_col <= c <= last_col:
+            row = rows[r - rng.min_row]
+            while len(row) <= c - rng.min_col:
+                row.append((None, "n"))
+            row[c - rng.min_col] = (code, "e")
     return FastRead(rows, scan, merged)

@@ -21,6 +21,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import openpyxl
+from openpyxl.utils import get_column_letter
 from defusedxml.ElementTree import iterparse
 from openpyxl.worksheet.formula import ArrayFormula, DataTableFormula
 
@@ -337,6 +338,8 @@ def cell_number(value, data_type=None, *, text_numbers=False, errors_as_missing=
     unless ``errors_as_missing``; booleans, dates, times and other text are refused.
     The error carries no place: the caller adds the sheet and cell.
     """
+    if type(value) in (float, int) and data_type != "e" and math.isfinite(value):
+        return float(value)       # the common case, decided at once
     if _is_blank(value):
         return None
     if _is_error(value, data_type):
@@ -568,18 +571,65 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
                 grid.fail(f"The column {headers[j]!r} is the block or treatment column and cannot also be "
                           "a response.", 0, j)
     used = (b_col, t_col, *r_cols)
-    places = []
-    for i in range(1, grid.nrows):
-        if all(_is_blank(grid.value(i, k)[0]) for k in used):
-            continue  # an empty row (e.g. below the data in an oversized range)
-        b = _label(grid, i, b_col, "block label")
-        t = _label(grid, i, t_col, "treatment label")
-        for k, lab, what in ((b_col, b, "block"), (t_col, t, "treatment")):
-            if lab is None:
-                grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
-                          "or leave the row out of the range.", i, k)
-        places.append((b, t, i))
-    return [_table(grid, "long", headers[j], [(b, t, i, j) for b, t, i in places], **options) for j in r_cols]
+    blocks = _column_labels(grid, b_col, "block label")
+    treatments = _column_labels(grid, t_col, "treatment label")
+    kept = []
+    for n, (b, t) in enumerate(zip(blocks, treatments)):
+        if b is None or t is None:
+            i = n + 1
+            if all(_is_blank(grid.value(i, k)[0]) for k in used):
+                continue  # an empty row (e.g. below the data in an oversized range)
+            k, what = (b_col, "block") if b is None else (t_col, "treatment")
+            grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
+                      "or leave the row out of the range.", i, k)
+        kept.append(n)
+    return [_long_table(grid, headers[j], j, kept, blocks, treatments, **options) for j in r_cols]
+
+
+_BLANK = (None, "n")
+
+
+def _column(grid: _Grid, j: int) -> list:
+    """The body cells (below the header row) of column ``j``."""
+    return [row[j] if j < len(row) else _BLANK for row in grid.rows[1:]]
+
+
+def _column_labels(grid: _Grid, j: int, what: str) -> list:
+    """Labels of a long-layout column, each distinct cell converted once."""
+    cells = _column(grid, j)
+    converted = {}
+    try:
+        for n, cell in enumerate(cells):
+            key = (type(cell[0]), cell)
+            if key not in converted:
+                converted[key] = _label(grid, n + 1, j, what)
+        return [converted[(type(cell[0]), cell)] for cell in cells]
+    except TypeError:  # a value that cannot be a dictionary key: convert cell by cell
+        return [_label(grid, n + 1, j, what) for n in range(len(cells))]
+
+
+def _long_table(grid: _Grid, response: str, j: int, kept, blocks, treatments, **options) -> TrialTable:
+    """One response column of a long layout; blank value cells become missing cells."""
+    cells = _column(grid, j)
+    letters = get_column_letter(grid.rng.min_col + j)
+    first_row = grid.rng.min_row
+    out_blocks, out_treatments, values, addresses, missing = [], [], [], [], []
+    for n in kept:
+        value, kind = cells[n]
+        if not (type(value) is float and kind != "e" and math.isfinite(value)):
+            value = _number(grid, n + 1, j, **options)
+        address = f"{letters}{first_row + n + 1}"
+        if value is None:
+            missing.append((blocks[n], treatments[n], address))
+        else:
+            out_blocks.append(blocks[n])
+            out_treatments.append(treatments[n])
+            values.append(value)
+            addresses.append(address)
+    if not values:
+        grid.fail(f"The range {grid.rng.a1} holds no values for {response!r}. Check that the range covers the data.")
+    return TrialTable(grid.rng.sheet, grid.rng, "long", response, out_blocks, out_treatments, values, addresses,
+                      missing)
 
 
 def _table(grid: _Grid, layout: str, response: str | None, places, **options) -> TrialTable:
