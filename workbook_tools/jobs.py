@@ -23,8 +23,7 @@ from workbook_tools.layout import SheetPlan, sheet_plans
 from workbook_tools.plan_jobs import (ANALYSIS_KINDS, PLAN_COLUMNS, PLAN_KIND, PlanJob, parse_kind, parse_plan_job,
                                       plan_sheet_name, prepare_plan, write_plan)
 from workbook_tools.ports import WorkbookPort
-from workbook_tools.sheets.book import (DEFAULT_PREFIX, ResponseAnalysis, _context_lines, _ordered_records,
-                                        audit_table, values_fingerprint)
+from workbook_tools.sheets.book import DEFAULT_PREFIX, ResponseAnalysis, _context_lines, analyse_tables, audit_table
 from workbook_tools.sheets.ranges import cell_address
 from workbook_tools.sheets.reader import TrialTable, cell_label, trials_from_values
 from workbook_tools.sheets.writer import FORBIDDEN, sheet_name
@@ -203,32 +202,12 @@ def _job(row: int, get, columns: dict[str, int], sheet: str) -> Job:
                label("Control"), parse("Prefix", parse_prefix))
 
 
-def analyse_tables(tables: list[TrialTable], file_name: str, **engine_options) -> list[ResponseAnalysis]:
-    """Analyse each table read from a range, as ``workbook-tools analyze`` does.
-
-    Engine problems are reported at the data range, with the response named.
-    """
-    from workbook_tools.api import analyze_records
-
-    analyses = []
-    for table in tables:
-        blocks, treatments, values = _ordered_records(table)
-        try:
-            result = analyze_records(blocks, treatments, values, **engine_options)
-        except TrialInputError as error:
-            where = f" (response '{table.response}')" if table.response else ""
-            raise TrialInputError(error.message + where, sheet=table.sheet, cell=table.range.a1) from None
-        source = {"file": file_name, "sheet": table.sheet, "range": table.range.a1, "response": table.response,
-                  "layout": table.layout}
-        analyses.append(ResponseAnalysis(source, result, values_fingerprint(blocks, treatments, values)))
-    return analyses
-
-
 def analyse_job(port: WorkbookPort, job: Job) -> list[ResponseAnalysis]:
     """Read a job's range through the port and analyse every response in it."""
     cells = port.read_range(job.range_text)
     tables = trials_from_values(cells.rows, cells.range, **job.read_options())
-    return analyse_tables(tables, port.name, **job.engine_options())
+    hidden = port.hidden_warning(cells.range)
+    return analyse_tables(tables, port.name, extra_warnings=[hidden] if hidden else (), **job.engine_options())
 
 
 def utc_now() -> dt.datetime:

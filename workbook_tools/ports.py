@@ -38,6 +38,9 @@ class WorkbookPort(Protocol):
     def sheet_values(self, sheet: str) -> list[list] | None:
         """Every row of a sheet from A1 to its last used cell; ``None`` when there is no such sheet."""
 
+    def hidden_warning(self, rng) -> str | None:
+        """A warning naming hidden rows and columns inside ``rng``, or ``None``."""
+
     def sheet_names(self) -> list[str]:
         """Names of all sheets, in order."""
 

@@ -31,7 +31,8 @@ import xlwings as xw
 from openpyxl.utils.cell import range_boundaries
 
 from workbook_tools.analysis.errors import TrialInputError
-from workbook_tools.jobs import analyse_tables, parse_alpha, parse_compare, parse_layout
+from workbook_tools.jobs import parse_alpha, parse_compare, parse_layout
+from workbook_tools.sheets.book import analyse_tables
 from workbook_tools.layout import table_by_key
 from workbook_tools.sheets.ranges import CellRange
 from workbook_tools.sheets.reader import cell_label, trials_from_values

@@ -71,6 +71,22 @@ class XlwingsWorkbook:
         ws = self.book.sheets[sheet]
         return ws.range("A1", ws.used_range.last_cell).options(**READ_OPTIONS).value
 
+    def hidden_warning(self, rng) -> str | None:
+        """Rows and columns of the range that Excel hides, asked of the live sheet.
+
+        Needs Excel's object model (``Range.api``); where it is not there (a stand-in
+        book, an unusual platform) no warning is given.
+        """
+        from workbook_tools.sheets.hidden import hidden_text
+
+        try:
+            ws = self.book.sheets[rng.sheet]
+            rows = [r for r in range(rng.min_row, rng.max_row + 1) if ws.range((r, 1)).api.EntireRow.Hidden]
+            cols = [c for c in range(rng.min_col, rng.max_col + 1) if ws.range((1, c)).api.EntireColumn.Hidden]
+        except AttributeError:
+            return None
+        return hidden_text(rows, cols, rng)
+
     def sheet_names(self) -> list[str]:
         return [ws.name for ws in self.book.sheets]
 

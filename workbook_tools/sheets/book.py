@@ -80,26 +80,35 @@ def analyse_book(path, range_text: str, **options) -> list[ResponseAnalysis]:
     -------
     list of ResponseAnalysis
     """
-    from workbook_tools.api import analyze_records
-
     unknown = set(options) - set(READ_OPTIONS) - set(ENGINE_OPTIONS)
     if unknown:
         raise TrialInputError(f"Unknown option(s): {', '.join(sorted(unknown))}.")
     read = {k: v for k, v in options.items() if k in READ_OPTIONS and v is not None}
     engine = {k: v for k, v in options.items() if k in ENGINE_OPTIONS and v is not None}
-    analyses = []
     tables = read_trials(path, range_text, **read)
     hidden = hidden_warning(path, tables[0].range) if tables else None
+    return analyse_tables(tables, Path(path).name, extra_warnings=[hidden] if hidden else (), **engine)
+
+
+def analyse_tables(tables: list[TrialTable], file_name: str, *, extra_warnings=(), **engine_options
+                   ) -> list[ResponseAnalysis]:
+    """Analyse each table read from a range: the one loop every front end shares.
+
+    Engine problems are reported at the data range, with the response named;
+    ``extra_warnings`` (e.g. about hidden rows) are added to every result.
+    """
+    from workbook_tools.api import analyze_records
+
+    analyses = []
     for table in tables:
         blocks, treatments, values = _ordered_records(table)
         try:
-            result = analyze_records(blocks, treatments, values, **engine)
+            result = analyze_records(blocks, treatments, values, **engine_options)
         except TrialInputError as error:
             where = f" (response '{table.response}')" if table.response else ""
             raise TrialInputError(error.message + where, sheet=table.sheet, cell=table.range.a1) from None
-        if hidden:
-            result.warnings.append(hidden)
-        source = {"file": Path(path).name, "sheet": table.sheet, "range": table.range.a1,
+        result.warnings.extend(extra_warnings)
+        source = {"file": file_name, "sheet": table.sheet, "range": table.range.a1,
                   "response": table.response, "layout": table.layout}
         analyses.append(ResponseAnalysis(source, result, values_fingerprint(blocks, treatments, values)))
     return analyses

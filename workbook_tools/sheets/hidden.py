@@ -86,6 +86,11 @@ def _listed(items: list[str]) -> str:
 def hidden_warning(path, rng: CellRange) -> str | None:
     """A sentence naming the hidden rows and columns of ``rng``, or ``None`` when there are none."""
     rows, cols = hidden_lines(path, rng)
+    return hidden_text(rows, cols, rng)
+
+
+def hidden_text(rows: list[int], cols: list[int], rng: CellRange) -> str | None:
+    """The warning for hidden ``rows`` and ``cols`` (1-based) inside ``rng``; ``None`` when there are none."""
     if not rows and not cols:
         return None
     parts = []

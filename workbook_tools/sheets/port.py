@@ -46,6 +46,11 @@ class OpenpyxlWorkbook:
             return None
         return [list(row) for row in self.workbook[sheet].iter_rows(values_only=True)]
 
+    def hidden_warning(self, rng) -> str | None:
+        from workbook_tools.sheets.hidden import hidden_warning
+
+        return hidden_warning(self.path, rng)
+
     def sheet_names(self) -> list[str]:
         return list(self.workbook.sheetnames)
 
