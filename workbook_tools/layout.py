@@ -305,6 +305,7 @@ def table_by_key(result: dict, key: str) -> Table:
     }
     return builders[key](result)
 
+
 # ---------------------------------------------------------------- many workbooks (batch)
 
 BATCH_COLUMNS = (

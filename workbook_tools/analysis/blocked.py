@@ -6,7 +6,7 @@ import numpy as np
 
 from workbook_tools.analysis import checks as assumption_checks
 from workbook_tools.analysis.anova import blocked_rows, efficiency, one_way_rows
-from workbook_tools.analysis.compare import compare_means
+from workbook_tools.analysis.compare import common_value, compare_means
 from workbook_tools.analysis.design import BlockDesign
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.analysis.fit import fit_additive, fit_cell_means, sums_of_squares
@@ -22,7 +22,8 @@ def _residual_table(design, fitted, residuals, leverage, residual_ms, exact) -> 
     with np.errstate(divide="ignore", invalid="ignore"):
         standardized = np.where((denominator > 0) & (leverage < 1 - 1e-10) & (not exact),
                                 residuals / np.sqrt(np.maximum(denominator, 1e-300)), np.nan)
-    outlier = np.abs(np.nan_to_num(standardized, nan=0.0)) > OUTLIER_LIMIT
+    with np.errstate(invalid="ignore"):
+        outlier = np.abs(standardized) > OUTLIER_LIMIT      # NaN compares False
     return ResidualTable(
         block_labels=design.blocks, treatment_labels=design.treatments,
         block_index=design.block_index, treatment_index=design.treatment_index,
@@ -146,7 +147,7 @@ def analyze_design(
         if outcome.passed is False:
             warnings.append(outcome.verdict)
 
-    qq = assumption_checks.qq_points(np.nan_to_num(table.standardized, nan=0.0))
+    qq = assumption_checks.qq_points(table.standardized)  # undefined residuals are left out
     qq = dict(qq, reference_line=assumption_checks.reference_line(qq["theoretical"], qq["sample"]))
     friedman = _friedman(design, alpha, warnings)
 
@@ -167,7 +168,7 @@ def analyze_design(
     off_diagonal = dv[np.triu_indices(design.n_treatments, 1)]
     usable = not exact and error.ms > 0
     sed_values = np.sqrt(error.ms * off_diagonal) if usable else None
-    sed = float(sed_values[0]) if usable and np.allclose(sed_values, sed_values[0], rtol=1e-9) else None
+    sed = common_value(sed_values) if usable else None
     grand_mean = float(design.values.mean())
     residual_ms_value = float(residual_row.ms)
     summary = Summary(

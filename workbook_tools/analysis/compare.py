@@ -120,9 +120,9 @@ def _all_pairs_p_and_critical(method: str, t: np.ndarray, k: int, df: int, alpha
     raise ValueError(method)
 
 
-def _common(values: np.ndarray) -> float | None:
-    """The single value of an array when all entries agree to 1e-9 relative."""
-    if values.size and np.allclose(values, values[0], rtol=1e-9, atol=0.0):
+def common_value(values: np.ndarray) -> float | None:
+    """The single value of an array when all entries agree to 1e-9 relative, else None."""
+    if values.size and float(np.max(np.abs(values - values[0]))) <= 1e-9 * abs(float(values[0])):
         return float(values[0])
     return None
 
@@ -230,7 +230,7 @@ def _pairs(labels, first, second, diff, dv, error, alpha, alternative, p_and_cri
         p, critical_value = p_and_critical(t)
         p = np.clip(p, 0.0, 1.0)
         significant = p < alpha
-        critical_difference = _common(critical_value * se)
+        critical_difference = common_value(critical_value * se)
     else:
         se = np.zeros_like(diff)
         t = p = None
