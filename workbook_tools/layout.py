@@ -252,8 +252,10 @@ def friedman_table(result: dict) -> Table:
     f = result["friedman"] or {}
     rows = [["Friedman chi-square", f.get("statistic")], ["df", f.get("df")], ["p-value", f.get("p")],
             ["Kendall's W", f.get("kendall_w")]]
+    verdict = f.get("verdict") or ("Not computed: the Friedman test needs every block complete, "
+                                   "and this trial has missing cells.")
     return Table("friedman", "Rank-based test (Friedman)", (Column("Figure", "text"), Column("Value", "ratio")), rows,
-                 f.get("verdict"))
+                 verdict)
 
 
 def notes_table(result: dict) -> Table:

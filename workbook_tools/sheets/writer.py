@@ -19,8 +19,10 @@ HEADER_FILL = PatternFill("solid", fgColor="E4EAF1")
 HEADER_BORDER = Border(bottom=Side(style="thin", color="7F8C99"))
 NOTE_FONT = Font(italic=True, color="555555")
 WRAP = Alignment(wrap_text=True, vertical="top")
+TOP = Alignment(vertical="top")
 LONG_TEXT = 60      # characters: the widest a last (verdict) column grows before wrapping
 SHORT_TEXT = 28     # characters: longer text in an inner column wraps instead of widening it
+LINE_HEIGHT = 15    # points per line of wrapped text
 LABEL_TEXT = 48     # characters: row labels (first column) are shown in full up to this
 MAX_SHEET_NAME = 31
 FORBIDDEN = set('[]:*?/\\')
@@ -91,6 +93,7 @@ def write_table(ws, table: Table, top: int, left: int, widths: dict[int, int]) -
     row = header_row
     for row_values in table.rows:
         row += 1
+        lines = 1
         for j, value in enumerate(row_values):
             cell = ws.cell(row, left + j, value)
             if isinstance(value, int) and not isinstance(value, bool) and table.columns[j].kind != "p":
@@ -103,7 +106,15 @@ def write_table(ws, table: Table, top: int, left: int, widths: dict[int, int]) -
             shown = _shown_length(value)
             if isinstance(value, str) and shown > limit:
                 cell.alignment = WRAP
+                lines = max(lines, -(-shown // limit))
             widths[left + j] = max(widths.get(left + j, 0), min(shown, limit))
+        if lines > 1:  # not every spreadsheet application grows a row for wrapped text by itself
+            ws.row_dimensions[row].height = LINE_HEIGHT * lines
+            for j in range(len(row_values)):
+                cell = ws.cell(row, left + j)
+                if not cell.alignment.wrap_text:
+                    cell.alignment = TOP
+
     last = row
     if table.note:
         ws.cell(last + 1, left, table.note).font = NOTE_FONT
