@@ -115,6 +115,8 @@ class XlwingsWorkbook:
             _chart(ws, "column_clustered", source, (p.header_row, p.col(0) + 11))
         if family == "residuals" and "residuals" in placements and "qq" in placements:
             r, q = placements["residuals"], placements["qq"]
+            if q.last_row < q.first_row:   # no standardized residual is defined (an exact fit): no plots
+                return
             anchor_col = q.first_col + 3
             _chart(ws, "xy_scatter", _column(ws, q.col(0), q.first_row, q.last_row, q.col(1)),
                    (r.header_row, anchor_col))

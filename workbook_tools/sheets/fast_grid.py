@@ -26,7 +26,6 @@ _REF = re.compile(rb'\br="([A-Z]{1,3})([0-9]{1,7})"')
 _FORMULA = re.compile(rb"<" + _PREFIX + rb"f(?=[\s>/])")
 _VALUE = re.compile(rb"<" + _PREFIX + rb"v>(.*?)</" + _PREFIX + rb"v>", re.S)
 _CELL_END = re.compile(rb"</" + _PREFIX + rb"c>")
-_BLANK = (None, "n")
 _FULL_CALC = re.compile(rb'fullCalcOnLoad="(?:1|true)"')
 
 
@@ -97,8 +96,8 @@ def scan_sheet(path, sheet: str) -> SheetScan:
                 value = _VALUE.search(data, cell.end(), end.start() if end else len(data))
                 scan.errors[where] = value.group(1).decode("utf-8", "replace") if value else "#N/A"
         position = data.find(b't="e"', position + 5)
-    for match in _FORMULA.finditer(data):
-        start = data.rfind(b"<", 0, match.start())
+    for at, end_of_tag in _formula_tags(data):
+        start = data.rfind(b"<", 0, at)
         while start > 0 and not _CELL_START.match(data, start):
             start = data.rfind(b"<", 0, start)
         cell = _CELL_START.match(data, start) if start >= 0 else None
@@ -106,23 +105,35 @@ def scan_sheet(path, sheet: str) -> SheetScan:
         if where is None:
             scan.complete = False
             continue
-        end = _CELL_END.search(data, match.end())
-        value = _VALUE.search(data, match.end(), end.start() if end else len(data))
+        end = _CELL_END.search(data, end_of_tag)
+        value = _VALUE.search(data, end_of_tag, end.start() if end else len(data))
         scan.formulas[where] = value.group(1).decode("utf-8", "replace") if value else None
     return scan
+
+
+def _formula_tags(data: bytes):
+    """(start, end) of every formula start tag; a plain byte search unless the sheet uses prefixes."""
+    if b":worksheet" in data[:4096]:          # elements written with a namespace prefix (rare)
+        yield from ((m.start(), m.end()) for m in _FORMULA.finditer(data))
+        return
+    at = data.find(b"<f")
+    while at >= 0:
+        if data[at + 2:at + 3] in (b" ", b">", b"/", b"\t", b"\n", b"\r"):
+            yield at, at + 2
+        at = data.find(b"<f", at + 2)
 
 
 @dataclass
 class FastRead:
     """The range's cells and what the scan and calamine found around them."""
 
-    rows: list          # rows of (value, kind): kind "e" for an error cell (value: its code), else "n"
+    rows: list          # rows of plain values: None for a blank, an error cell as its code ("#N/A")
     scan: SheetScan
     merged: list        # (min_row, min_col, max_row, max_col), 1-based
 
 
 def read_cells(path, rng: CellRange) -> FastRead:
-    """The range's cells as far as the sheet holds anything; blanks are ``None``.
+    """The range's values as far as the sheet holds anything; blanks are ``None``, errors their code.
 
     Raises LookupError when the fast route cannot be sure of a cell (a sheet whose
     cells carry no addresses): the caller then uses openpyxl.
@@ -143,15 +154,12 @@ def read_cells(path, rng: CellRange) -> FastRead:
     last_row = min(rng.max_row, len(values))
     width = max((len(r) for r in values), default=0)
     last_col = min(rng.max_col, width)
-    errors = scan.errors
     first, stop = rng.min_col - 1, last_col
     for r in range(rng.min_row, last_row + 1):
-        row = [(v, "n") if v.__class__ is not str or v else _BLANK for v in values[r - 1][first:stop]]
-        rows.append(row)
-    for (r, c), code in errors.items():
+        rows.append([None if v.__class__ is str and not v else v for v in values[r - 1][first:stop]])
+    for (r, c), code in scan.errors.items():
         if rng.min_row <= r <= last_row and rng.min_col <= c <= last_col:
             row = rows[r - rng.min_row]
-            while len(row) <= c - rng.min_col:
-                row.append((None, "n"))
-            row[c - rng.min_col] = (code, "e")
+            row.extend([None] * (c - rng.min_col + 1 - len(row)))
+            row[c - rng.min_col] = code
     return FastRead(rows, scan, merged)

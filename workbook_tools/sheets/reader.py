@@ -103,7 +103,7 @@ def read_range_values(path, range_text, *, read_only=None) -> tuple[CellRange, l
     blank cell, error values as their text (``"#N/A"``), other values as openpyxl gives them.
     """
     grid = _read_grid(Path(path), range_text, read_only)
-    return grid.rng, [[value for value, _ in row] for row in grid.rows]
+    return grid.rng, [list(row) for row in grid.rows]
 
 
 def trials_from_values(values, rng: CellRange, *, layout="auto", transposed=False, block=None, treatment=None,
@@ -115,7 +115,7 @@ def trials_from_values(values, rng: CellRange, *, layout="auto", transposed=Fals
     for messages. The rules, options and messages are those of `read_trials`.
     """
     _check_layout(layout)
-    grid = _Grid(rng, [[(value, None) for value in row] for row in values])
+    grid = _Grid(rng, [list(row) for row in values])
     return _trials(grid, layout, transposed, block, treatment, responses, text_numbers, errors_as_missing)
 
 
@@ -201,7 +201,7 @@ def _trials(grid: "_Grid", layout, transposed, block, treatment, responses, text
             errors_as_missing) -> list[TrialTable]:
     """The layout rules every front end shares: one table for a wide grid, one per long response."""
     rng = grid.rng
-    if all(_is_blank(value) for row in grid.rows for value, _ in row):
+    if all(_is_blank(value) for row in grid.rows for value in row):
         grid.fail(f"The range {rng.a1} is empty. Check that the range covers the data.")
     options = dict(text_numbers=text_numbers, errors_as_missing=errors_as_missing)
     if layout == "auto":
@@ -265,9 +265,13 @@ def _open_workbook(path: Path, read_only, *, data_only: bool, checked: bool = Fa
 # ---------------------------------------------------------------- the cells
 
 class _Grid:
-    """The cells of a range, kept only as far as the sheet holds anything."""
+    """The cells of a range, kept only as far as the sheet holds anything.
 
-    def __init__(self, rng: CellRange, rows: list[list[tuple[object, str]]]):
+    ``rows`` hold plain values: ``None`` for a blank, an error cell as its code
+    (``"#N/A"``), which the cell rules recognise by its text.
+    """
+
+    def __init__(self, rng: CellRange, rows: list[list]):
         self.rng = rng
         self.rows = rows
         self.nrows = len(rows)
@@ -283,13 +287,14 @@ class _Grid:
         if max_row >= rng.min_row and max_col >= rng.min_col:
             for row in ws.iter_rows(min_row=rng.min_row, max_row=max_row, min_col=rng.min_col, max_col=max_col):
                 limits.check_time()
-                rows.append([(c.value, c.data_type) for c in row])
+                rows.append([c.value for c in row])
         return cls(rng, rows)
 
     def value(self, i: int, j: int):
+        """``(value, kind)`` of a cell, as the cell rules take it (kind is not needed: errors are text)."""
         if i < self.nrows and j < len(self.rows[i]):
-            return self.rows[i][j]
-        return None, "n"
+            return self.rows[i][j], None
+        return None, None
 
     def address(self, i: int, j: int) -> str:
         return cell_address(self.rng.min_row + i, self.rng.min_col + j)
@@ -454,7 +459,7 @@ def _check_calculated(path: Path, grid: _Grid, recalc_on_open: bool) -> None:
     writes that), so those zeros are checked too. Only when such cells exist is the
     file opened a second time, in streaming mode, to look at the formulas.
     """
-    suspects = {(i, j) for i, row in enumerate(grid.rows) for j, (value, _) in enumerate(row)
+    suspects = {(i, j) for i, row in enumerate(grid.rows) for j, value in enumerate(row)
                 if value is None or (recalc_on_open and type(value) in (int, float) and value == 0)}
     if not suspects:
         return
@@ -586,12 +591,9 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
     return [_long_table(grid, headers[j], j, kept, blocks, treatments, **options) for j in r_cols]
 
 
-_BLANK = (None, "n")
-
-
 def _column(grid: _Grid, j: int) -> list:
-    """The body cells (below the header row) of column ``j``."""
-    return [row[j] if j < len(row) else _BLANK for row in grid.rows[1:]]
+    """The body values (below the header row) of column ``j``."""
+    return [row[j] if j < len(row) else None for row in grid.rows[1:]]
 
 
 def _column_labels(grid: _Grid, j: int, what: str) -> list:
@@ -599,11 +601,11 @@ def _column_labels(grid: _Grid, j: int, what: str) -> list:
     cells = _column(grid, j)
     converted = {}
     try:
-        for n, cell in enumerate(cells):
-            key = (type(cell[0]), cell)
+        for n, value in enumerate(cells):
+            key = (type(value), value)   # the type keeps TRUE, 1 and 1.0 apart
             if key not in converted:
                 converted[key] = _label(grid, n + 1, j, what)
-        return [converted[(type(cell[0]), cell)] for cell in cells]
+        return [converted[(type(value), value)] for value in cells]
     except TypeError:  # a value that cannot be a dictionary key: convert cell by cell
         return [_label(grid, n + 1, j, what) for n in range(len(cells))]
 
@@ -615,8 +617,8 @@ def _long_table(grid: _Grid, response: str, j: int, kept, blocks, treatments, **
     first_row = grid.rng.min_row
     out_blocks, out_treatments, values, addresses, missing = [], [], [], [], []
     for n in kept:
-        value, kind = cells[n]
-        if not (type(value) is float and kind != "e" and math.isfinite(value)):
+        value = cells[n]
+        if not (type(value) is float and math.isfinite(value)):
             value = _number(grid, n + 1, j, **options)
         address = f"{letters}{first_row + n + 1}"
         if value is None:

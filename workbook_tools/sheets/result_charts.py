@@ -30,6 +30,8 @@ def add_result_charts(ws, family: str, placements: dict[str, Placement]) -> None
         if r.last_row < r.first_row:
             return
         anchor_col = q.first_col + 3
+        if q.last_row < q.first_row:   # no standardized residual is defined (an exact fit): no plots
+            return
         charts.add_qq_chart(
             ws, x_col=q.col(0), y_col=q.col(1), first_row=q.first_row, last_row=q.last_row,
             line_x_col=line.col(0), line_y_col=line.col(1), line_first_row=line.first_row,
