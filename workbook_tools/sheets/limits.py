@@ -418,29 +418,29 @@ class _SheetPart:
             data, self.carry = data[:open_at], data[open_at:]
         else:
             self.carry = b""
-        bytes_ = np.frombuffer(data, dtype=np.uint8)
-        starts = np.flatnonzero(bytes_ == ord("<"))
-        if starts.size == 0:
+        if not data:
             return
-        ends_all = np.flatnonzero(bytes_ == ord(">"))
-        if ends_all.size == 0:
-            return
-        ends = ends_all[np.minimum(np.searchsorted(ends_all, starts), ends_all.size - 1)]
-        last = bytes_.size - 1
-        first = bytes_[np.minimum(starts + 1, last)]
-        second = bytes_[np.minimum(starts + 2, last)]
-        for at in starts[first == ord("!")].tolist():
+        b = np.frombuffer(data, dtype=np.uint8)
+        after = np.zeros_like(b)
+        after[:-1] = b[1:]                            # the byte after each byte
+        after2 = np.zeros_like(b)
+        after2[:-2] = b[2:]
+        lt = b == ord("<")
+        bang = lt & (after == ord("!"))
+        for at in np.flatnonzero(bang).tolist():
             if data[at + 2:at + 9] in (b"DOCTYPE", b"ENTITY ") or data[at + 2:at + 8] == b"ENTITY":
                 raise self.scan.refuse_doctype(self.name)
-        closing = first == ord("/")
-        neutral = (first == ord("?")) | (first == ord("!")) | (bytes_[np.maximum(ends - 1, 0)] == ord("/"))
-        step = np.where(closing, -1, np.where(neutral, 0, 1))
-        path = self.depth + np.cumsum(step)
-        if path.max() > self.scan.limits.max_xml_depth:
+        closing = lt & (after == ord("/"))
+        opening = lt & ~closing & ~bang & (after != ord("?"))
+        self_closing = (b == ord("/")) & (after == ord(">"))
+        step = opening.astype(np.int32) - closing - self_closing
+        path = np.cumsum(step, dtype=np.int64) + self.depth
+        if int(path.max()) > self.scan.limits.max_xml_depth:
             raise self.scan.refuse_depth(self.name)
         self.depth = int(path[-1])
-        is_cell = (first == ord("c")) & np.isin(second, (ord(" "), ord(">"), ord("/"), 9, 10, 13))
-        self.scan.cells += int(np.count_nonzero(is_cell))
+        cell = opening & (after == ord("c")) & ((after2 == ord(" ")) | (after2 == ord(">")) | (after2 == ord("/"))
+                                               | (after2 == 9) | (after2 == 10) | (after2 == 13))
+        self.scan.cells += int(np.count_nonzero(cell))
 
 
 # ---------------------------------------------------------------- command line
