@@ -148,7 +148,8 @@ def analyze_design(
             warnings.append(outcome.verdict)
 
     qq = assumption_checks.qq_points(table.standardized)  # undefined residuals are left out
-    qq = dict(qq, reference_line=assumption_checks.reference_line(qq["theoretical"], qq["sample"]))
+    qq = dict(qq, reference_line=assumption_checks.reference_line(qq["theoretical"], qq["sample"],
+                                                                  already_sorted=True))
     friedman = _friedman(design, alpha, warnings)
 
     missing = [

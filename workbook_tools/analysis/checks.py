@@ -210,10 +210,14 @@ def equal_variance_check(residuals, treatment_index, n_treatments: int, alpha: f
         raise TrialInputError("Each residual needs exactly one treatment number.")
     keep = np.isfinite(values)
     values, index = values[keep], index[keep]
-    # small unsigned integers make numpy's stable sort a linear-time radix sort
-    order = np.argsort(index.astype(np.uint16 if n_treatments < 2**16 else np.int64), kind="stable")
-    sizes = np.bincount(index, minlength=n_treatments)
-    groups = np.split(values[order], np.cumsum(sizes)[:-1])
+    if index.size % n_treatments == 0 and np.array_equal(
+            index, np.tile(np.arange(n_treatments), index.size // n_treatments)):
+        groups = list(values.reshape(-1, n_treatments).T)   # a complete grid read row by row
+    else:
+        # small unsigned integers make numpy's stable sort a linear-time radix sort
+        order = np.argsort(index.astype(np.uint16 if n_treatments < 2**16 else np.int64), kind="stable")
+        sizes = np.bincount(index, minlength=n_treatments)
+        groups = np.split(values[order], np.cumsum(sizes)[:-1])
     dropped = sum(1 for g in groups if g.size < 2)
     groups = [g for g in groups if g.size >= 2]
     note = (f" ({dropped} treatment{'s' if dropped != 1 else ''} with fewer than 2 residuals "
@@ -358,7 +362,7 @@ def qq_points(standardized_residuals) -> dict:
     }
 
 
-def reference_line(theoretical, sample) -> tuple[float, float]:
+def reference_line(theoretical, sample, *, already_sorted: bool = False) -> tuple[float, float]:
     """Intercept and slope of the Q-Q reference line through the first and third quartiles.
 
     Drawing the line through the quartiles of both axes, rather than fitting it, is common
@@ -370,6 +374,8 @@ def reference_line(theoretical, sample) -> tuple[float, float]:
     ----------
     theoretical, sample : array_like
         The x and y coordinates of the Q-Q points, as from ``qq_points``.
+    already_sorted : bool
+        Both are ascending already (as ``qq_points`` returns them).
 
     Returns
     -------
@@ -380,8 +386,8 @@ def reference_line(theoretical, sample) -> tuple[float, float]:
     y = np.asarray(sample, dtype=float).ravel()
     if x.size < 2 or x.size != y.size:
         return 0.0, 1.0
-    x1, x3 = _quartiles(np.sort(x))
-    y1, y3 = _quartiles(np.sort(y))
+    x1, x3 = _quartiles(x if already_sorted else np.sort(x))
+    y1, y3 = _quartiles(y if already_sorted else np.sort(y))
     if not x3 > x1:
         return 0.0, 1.0
     slope = (y3 - y1) / (x3 - x1)
@@ -405,6 +411,10 @@ def average_ranks(values: np.ndarray) -> np.ndarray:
     ordered = np.take_along_axis(values, order, axis=1)
     new_run = np.ones((b, t), dtype=bool)
     new_run[:, 1:] = ordered[:, 1:] != ordered[:, :-1]
+    if new_run.all():                      # no ties anywhere: ranks are the sorted positions
+        ranks = np.empty((b, t))
+        np.put_along_axis(ranks, order, np.broadcast_to(np.arange(1.0, t + 1.0), (b, t)), axis=1)
+        return ranks
     positions = np.broadcast_to(np.arange(t), (b, t))
     run_start = np.maximum.accumulate(np.where(new_run, positions, 0), axis=1)
     run_end_marks = np.ones((b, t), dtype=bool)
