@@ -421,25 +421,24 @@ class _SheetPart:
         if not data:
             return
         b = np.frombuffer(data, dtype=np.uint8)
-        after = np.zeros_like(b)
-        after[:-1] = b[1:]                            # the byte after each byte
-        after2 = np.zeros_like(b)
-        after2[:-2] = b[2:]
-        lt = b == ord("<")
-        bang = lt & (after == ord("!"))
-        for at in np.flatnonzero(bang).tolist():
+        last = b.size - 1
+        tags = np.flatnonzero(b == ord("<"))
+        ends = np.flatnonzero((b[:-1] == ord("/")) & (b[1:] == ord(">")))   # "/>" closes an empty element
+        first = b[np.minimum(tags + 1, last)]
+        second = b[np.minimum(tags + 2, last)]
+        for at in tags[first == ord("!")].tolist():
             if data[at + 2:at + 9] in (b"DOCTYPE", b"ENTITY ") or data[at + 2:at + 8] == b"ENTITY":
                 raise self.scan.refuse_doctype(self.name)
-        closing = lt & (after == ord("/"))
-        opening = lt & ~closing & ~bang & (after != ord("?"))
-        self_closing = (b == ord("/")) & (after == ord(">"))
-        step = opening.astype(np.int32) - closing - self_closing
-        path = np.cumsum(step, dtype=np.int64) + self.depth
-        if int(path.max()) > self.scan.limits.max_xml_depth:
+        closing = first == ord("/")
+        opening = ~closing & (first != ord("!")) & (first != ord("?"))
+        steps = opening.astype(np.int64) - closing
+        # depth just after each tag starts: earlier tags' steps, less the empty elements closed before it
+        depth = self.depth + np.cumsum(steps) - np.searchsorted(ends, tags)
+        if depth.size and int(depth.max()) > self.scan.limits.max_xml_depth:
             raise self.scan.refuse_depth(self.name)
-        self.depth = int(path[-1])
-        cell = opening & (after == ord("c")) & ((after2 == ord(" ")) | (after2 == ord(">")) | (after2 == ord("/"))
-                                               | (after2 == 9) | (after2 == 10) | (after2 == 13))
+        self.depth += int(steps.sum()) - ends.size
+        cell = opening & (first == ord("c")) & ((second == ord(" ")) | (second == ord(">")) | (second == ord("/"))
+                                                | (second == 9) | (second == 10) | (second == 13))
         self.scan.cells += int(np.count_nonzero(cell))
 
 
