@@ -17,6 +17,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from workbook_tools.analysis.errors import TrialInputError
+from workbook_tools.sheets import limits
 from workbook_tools.sheets.ranges import CellRange
 from workbook_tools.sheets.safety import sheet_parts
 
@@ -60,11 +61,12 @@ class SheetScan:
     complete: bool = True                            # False: an error or formula cell had no address
 
 
-def _sheet_bytes(package: zipfile.ZipFile, sheet: str) -> bytes:
+def _sheet_bytes(path, package: zipfile.ZipFile, sheet: str) -> bytes:
     part = next((p for p, name in sheet_parts(package).items() if name == sheet), None)
     if part is None or part not in package.namelist():
         raise TrialInputError(f"The sheet '{sheet}' has no worksheet part in the file.", sheet=sheet)
-    return package.read(part)
+    kept = limits.take_checked_part(path, part)   # unpacked already by the upload check
+    return kept if kept is not None else package.read(part)
 
 
 def _cell_ref(tag_attrs: bytes) -> tuple[int, int] | None:
@@ -78,7 +80,7 @@ def scan_sheet(path, sheet: str) -> SheetScan:
     """Error cells and formula cells of a sheet, found in its XML without parsing it whole."""
     scan = SheetScan()
     with zipfile.ZipFile(Path(path)) as package:
-        data = _sheet_bytes(package, sheet)
+        data = _sheet_bytes(path, package, sheet)
         try:
             scan.recalc_on_open = bool(_FULL_CALC.search(package.read("xl/workbook.xml")))
         except KeyError:
@@ -127,13 +129,13 @@ def _formula_tags(data: bytes):
 class FastRead:
     """The range's cells and what the scan and calamine found around them."""
 
-    rows: list          # rows of plain values: None for a blank, an error cell as its code ("#N/A")
+    rows: list          # rows of plain values: "" for a blank, an error cell as its code ("#N/A")
     scan: SheetScan
     merged: list        # (min_row, min_col, max_row, max_col), 1-based
 
 
 def read_cells(path, rng: CellRange) -> FastRead:
-    """The range's values as far as the sheet holds anything; blanks are ``None``, errors their code.
+    """The range's values as far as the sheet holds anything; blanks are ``""``, errors their code.
 
     Raises LookupError when the fast route cannot be sure of a cell (a sheet whose
     cells carry no addresses): the caller then uses openpyxl.
@@ -150,13 +152,12 @@ def read_cells(path, rng: CellRange) -> FastRead:
         merged = [(r0 + 1, c0 + 1, r1 + 1, c1 + 1) for (r0, c0), (r1, c1) in (sheet.merged_cell_ranges or [])]
     finally:
         workbook.close()
-    rows = []
     last_row = min(rng.max_row, len(values))
     width = max((len(r) for r in values), default=0)
     last_col = min(rng.max_col, width)
     first, stop = rng.min_col - 1, last_col
-    for r in range(rng.min_row, last_row + 1):
-        rows.append([None if v.__class__ is str and not v else v for v in values[r - 1][first:stop]])
+    # calamine shows a blank as "", which the reader's rules take as blank already
+    rows = [row if first == 0 and stop >= len(row) else row[first:stop] for row in values[rng.min_row - 1:last_row]]
     for (r, c), code in scan.errors.items():
         if rng.min_row <= r <= last_row and rng.min_col <= c <= last_col:
             row = rows[r - rng.min_row]

@@ -97,6 +97,27 @@ OPTIONS = {
 _ACTIVE: ContextVar[Limits] = ContextVar("workbook_tools_limits", default=Limits())
 _DEADLINE: ContextVar[float | None] = ContextVar("workbook_tools_deadline", default=None)
 _checked: dict[tuple, bool] = {}
+_KEEP_SHEET_BYTES = 64 * MB
+_kept_parts: dict[tuple, bytes] = {}
+"""Worksheet parts unpacked by the last check, handed once to the reader's byte scan."""
+
+
+def _file_key(path: Path) -> tuple:
+    status = path.stat()
+    return str(path.resolve()), status.st_ino, status.st_size, status.st_mtime_ns
+
+
+def drop_checked_parts() -> None:
+    """Forget the kept worksheet bytes (once reading is over)."""
+    _kept_parts.clear()
+
+
+def take_checked_part(path, part: str) -> bytes | None:
+    """The unpacked bytes of ``part`` if the last check of ``path`` kept them (each handed out once)."""
+    try:
+        return _kept_parts.pop((_file_key(Path(path)), part), None)
+    except OSError:
+        return None
 
 
 def active() -> Limits:
@@ -293,13 +314,17 @@ def _check_directory(path: Path, archive: zipfile.ZipFile, members, limits: Limi
 def _check_members(path: Path, archive: zipfile.ZipFile, members, limits: Limits) -> None:
     budget = limits.max_uncompressed_bytes
     scan = _XmlScan(path, limits)
+    _kept_parts.clear()
     for m in members:
         check_time()
         xml = scan.parser(m.filename) if m.filename.lower().endswith(_XML_ENDINGS) else None
+        keep = [] if (m.filename.startswith("xl/worksheets/") and MB < m.file_size <= _KEEP_SHEET_BYTES) else None
         count, crc = 0, 0
         try:
             with archive.open(m) as stream:
                 while chunk := stream.read(_CHUNK):
+                    if keep is not None:
+                        keep.append(chunk)
                     count += len(chunk)
                     crc = zlib.crc32(chunk, crc)
                     budget -= len(chunk)
@@ -313,6 +338,8 @@ def _check_members(path: Path, archive: zipfile.ZipFile, members, limits: Limits
                 raise zipfile.BadZipFile("its content does not match its checksum or its declared size")
             if xml is not None:
                 scan.feed(xml, b"", final=True)
+            if keep is not None:  # a large sheet: the reader's byte scan need not unpack it again
+                _kept_parts[(_file_key(path), m.filename)] = b"".join(keep)
         except (zipfile.BadZipFile, zlib.error, EOFError, OSError, ValueError, NotImplementedError,
                 RuntimeError) as exc:
             raise _not_xlsx(path, f"damaged: its part {m.filename!r} cannot be unpacked ({exc})",

@@ -126,7 +126,10 @@ def _check_layout(layout) -> None:
 
 def _read_grid(path: Path, range_text, read_only) -> "_Grid":
     _check_file(path)
-    fast = _read_grid_fast(path, range_text, read_only)
+    try:
+        fast = _read_grid_fast(path, range_text, read_only)
+    finally:
+        limits.drop_checked_parts()
     if fast is not None:
         return fast
     wb, handle = _open_workbook(path, read_only, data_only=True, checked=True)
@@ -602,10 +605,10 @@ def _column_labels(grid: _Grid, j: int, what: str) -> list:
     converted = {}
     try:
         for n, value in enumerate(cells):
-            key = (type(value), value)   # the type keeps TRUE, 1 and 1.0 apart
+            key = (bool, value) if value.__class__ is bool else value   # TRUE and 1 label differently
             if key not in converted:
                 converted[key] = _label(grid, n + 1, j, what)
-        return [converted[(type(value), value)] for value in cells]
+        return [converted[(bool, value) if value.__class__ is bool else value] for value in cells]
     except TypeError:  # a value that cannot be a dictionary key: convert cell by cell
         return [_label(grid, n + 1, j, what) for n in range(len(cells))]
 
