@@ -363,3 +363,19 @@ def test_average_ranks_match_scipy_rankdata(b, t, seed, levels):
 
     values = np.random.default_rng(seed).integers(0, levels, (b, t)).astype(float)
     np.testing.assert_allclose(average_ranks(values), stats.rankdata(values, axis=1))
+
+
+@pytest.mark.parametrize("n", [20, 57, 5001, 60000])
+@pytest.mark.parametrize("shape", ["normal", "exponential", "t3", "uniform"])
+def test_dagostino_pearson_matches_scipy_normaltest(n, shape):
+    # Reference: scipy.stats.normaltest (D'Agostino 1970; Anscombe & Glynn 1983), same formulas.
+    from workbook_tools.analysis.checks import dagostino_pearson
+
+    rng = np.random.default_rng(n)
+    draw = {"normal": rng.normal, "exponential": rng.exponential, "uniform": rng.uniform,
+            "t3": lambda size: rng.standard_t(3, size)}[shape]
+    values = draw(size=n)
+    statistic, p = dagostino_pearson(values)
+    reference = stats.normaltest(values)
+    assert statistic == pytest.approx(reference.statistic, rel=1e-10)
+    assert p == pytest.approx(reference.pvalue, rel=1e-8, abs=1e-300)

@@ -179,6 +179,11 @@ def _from_numeric_grid(values: np.ndarray, block_labels, treatment_labels) -> Bl
             "which is not a finite number."
         )
     present = ~np.isnan(grid)
+    if present.all():   # a complete grid: positions follow from the shape
+        b, t = grid.shape
+        block_of = np.repeat(np.arange(b, dtype=np.intp), t)
+        treatment_of = np.tile(np.arange(t, dtype=np.intp), b)
+        return _validated(block_labels, treatment_labels, block_of, treatment_of, grid.ravel())
     block_of, treatment_of = np.nonzero(present)
     return _validated(block_labels, treatment_labels, block_of, treatment_of, grid[present])
 
