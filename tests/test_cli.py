@@ -588,3 +588,12 @@ def test_analyze_in_a_real_process(tmp_path):
     bad = subprocess.run([*_command(), "analyze", str(tmp_path / "absent.xlsx"), "--range", sample.range],
                          capture_output=True, text=True, timeout=120)
     assert bad.returncode == 2 and "Traceback" not in bad.stderr
+
+
+def test_the_command_line_offers_the_engine_methods_and_default():
+    # cli keeps its own copy so that starting it does not import the engine; they must agree
+    from workbook_tools import cli
+    from workbook_tools.analysis import compare
+
+    assert cli.COMPARE_METHODS == compare.METHODS
+    assert cli.DEFAULT_COMPARE == compare.DEFAULT_METHOD

@@ -17,7 +17,7 @@ def analyze_grid(values, blocks, treatments, **options) -> BlockTrialResult:
     blocks, treatments : sequence
         Row and column labels; their order is kept in every table.
     **options
-        ``alpha=0.05``, ``compare="lsd"`` (``"tukey"``, ``"bonferroni"``, ``"holm"``,
+        ``alpha=0.05``, ``compare="tukey"`` (``"lsd"``, ``"bonferroni"``, ``"holm"``,
         ``"dunnett"``), ``control=None``, ``alternative="two-sided"`` (Dunnett only:
         ``"greater"``, ``"less"``), ``block_model="random"`` or ``"fixed"`` (matters only
         when every cell is replicated).

@@ -14,7 +14,8 @@ import sys
 from pathlib import Path
 
 EXIT_OK, EXIT_INTERNAL, EXIT_INPUT = 0, 1, 2
-COMPARE_METHODS = ("lsd", "tukey", "bonferroni", "holm", "dunnett")
+COMPARE_METHODS = ("lsd", "tukey", "bonferroni", "holm", "dunnett")  # as analysis.compare.METHODS
+DEFAULT_COMPARE = "tukey"  # as analysis.compare.DEFAULT_METHOD (not imported: keeps start-up light)
 
 
 def _add_analysis_options(parser: argparse.ArgumentParser, output: bool = True) -> None:
@@ -34,7 +35,7 @@ def _add_analysis_options(parser: argparse.ArgumentParser, output: bool = True) 
                       help="treat error cells (#N/A, #DIV/0!, ...) as missing instead of stopping")
     stats = parser.add_argument_group("the analysis")
     stats.add_argument("--alpha", type=float, default=0.05, help="significance level (default 0.05)")
-    stats.add_argument("--compare", choices=COMPARE_METHODS, default="tukey",
+    stats.add_argument("--compare", choices=COMPARE_METHODS, default=DEFAULT_COMPARE,
                        help="pairwise comparison method (default tukey)")
     stats.add_argument("--control", help="control treatment for --compare dunnett (default: the first)")
     stats.add_argument("--alternative", choices=("two-sided", "greater", "less"), default="two-sided",

@@ -17,7 +17,7 @@ import datetime as dt
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from workbook_tools.analysis.compare import METHODS
+from workbook_tools.analysis.compare import DEFAULT_METHOD, METHODS
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.layout import SheetPlan, sheet_plans
 from workbook_tools.plan_jobs import (ANALYSIS_KINDS, PLAN_COLUMNS, PLAN_KIND, PlanJob, parse_kind, parse_plan_job,
@@ -52,7 +52,7 @@ class Job:
     block: str | None = None
     treatment: str | None = None
     responses: tuple[str, ...] | None = None
-    compare: str = "tukey"
+    compare: str = DEFAULT_METHOD
     alpha: float = 0.05
     control: str | None = None
     prefix: str = DEFAULT_PREFIX
@@ -149,7 +149,7 @@ def parse_layout(value) -> tuple[str, bool]:
 
 def parse_compare(value) -> str:
     """A comparison method name (blank: tukey)."""
-    compare = (_label(value, "comparison method") or "tukey").casefold()
+    compare = (_label(value, "comparison method") or DEFAULT_METHOD).casefold()
     if compare not in METHODS:
         raise TrialInputError(f"The comparison method must be one of {', '.join(METHODS)}, not {compare!r}.")
     return compare

@@ -6,7 +6,7 @@ import numpy as np
 
 from workbook_tools.analysis import checks as assumption_checks
 from workbook_tools.analysis.anova import blocked_rows, efficiency, one_way_rows
-from workbook_tools.analysis.compare import common_value, compare_means
+from workbook_tools.analysis.compare import DEFAULT_METHOD, common_value, compare_means
 from workbook_tools.analysis.design import BlockDesign
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.analysis.fit import fit_additive, fit_cell_means, sums_of_squares
@@ -49,7 +49,7 @@ def analyze_design(
     design: BlockDesign,
     *,
     alpha: float = 0.05,
-    compare: str = "lsd",
+    compare: str = DEFAULT_METHOD,
     control: str | None = None,
     alternative: str = "two-sided",
     block_model: str = "random",

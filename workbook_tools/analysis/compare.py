@@ -21,6 +21,8 @@ from workbook_tools.analysis.letters import letter_groups
 from workbook_tools.analysis.means import MeanEstimates, difference_variances, t_quantile
 
 METHODS = ("lsd", "tukey", "bonferroni", "holm", "dunnett")
+DEFAULT_METHOD = "tukey"
+"""Every front end's default: it controls the family-wise error rate, unlike plain LSD."""
 ALTERNATIVES = ("two-sided", "greater", "less")
 
 METHOD_TITLES = {
@@ -140,7 +142,7 @@ def compare_means(
     estimates: MeanEstimates,
     error: ErrorTerm,
     *,
-    method: str = "lsd",
+    method: str = DEFAULT_METHOD,
     alpha: float = 0.05,
     control: str | None = None,
     alternative: str = "two-sided",

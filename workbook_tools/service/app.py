@@ -30,7 +30,7 @@ from pydantic import BaseModel
 
 from workbook_tools import __version__
 from workbook_tools.analysis.errors import TrialInputError
-from workbook_tools.cli import COMPARE_METHODS
+from workbook_tools.cli import COMPARE_METHODS, DEFAULT_COMPARE as DEFAULT_METHOD
 from workbook_tools.sheets import limits as workbook_limits
 
 XLSX_MEDIA_TYPE = "application/vnd.openxmlformats-officedocument.spreadsheetml.sheet"
@@ -187,7 +187,7 @@ def create_app(settings: ServiceSettings = ServiceSettings()) -> FastAPI:
         text_numbers: bool = Form(False),
         errors_as_missing: bool = Form(False),
         alpha: float = Form(0.05, gt=0, lt=1),
-        compare: Compare = Form("tukey"),
+        compare: Compare = Form(DEFAULT_METHOD),
         control: Optional[str] = Form(None),
         alternative: Literal["two-sided", "greater", "less"] = Form("two-sided"),
         block_model: Literal["random", "fixed"] = Form("random"),
