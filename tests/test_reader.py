@@ -401,3 +401,22 @@ def test_guess_long_from_headers_with_numeric_codes(tmp_path):
     rows = [["Block", "Treatment", "Yield"], [1, 1, 5], [1, 2, 6], [2, 1, 7], [2, 2, 8]]
     (table,) = read_trials(save(tmp_path, rows), "A1:C5")
     assert (table.layout, table.response) == ("long", "Yield") and table.treatments == ["1", "2", "1", "2"]
+
+
+@pytest.mark.parametrize("empty_value", [b"<v></v>", b"<v/>", b""])
+def test_formula_with_an_empty_stored_value_is_uncalculated(tmp_path, empty_value):
+    # openpyxl writes an uncalculated formula as <v></v> with lxml and <v/> without it;
+    # either, or no <v> at all, means no stored result.
+    rows = [list(r) for r in WIDE]
+    rows[1][2] = 777.25
+    path = save(tmp_path, rows)
+    patched = tmp_path / "formula.xlsx"
+    with zipfile.ZipFile(path) as src, zipfile.ZipFile(patched, "w") as dst:
+        for item in src.infolist():
+            data = src.read(item)
+            if item.filename == "xl/worksheets/sheet1.xml":
+                assert b"<v>777.25</v>" in data
+                data = data.replace(b"<v>777.25</v>", b"<f>B2*2</f>" + empty_value)
+            dst.writestr(item, data)
+    err = refused(patched, "A1:D4")
+    assert (err.sheet, err.cell) == ("Trial", "C2") and "never calculated" in err.message

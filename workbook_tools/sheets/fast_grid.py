@@ -109,7 +109,8 @@ def scan_sheet(path, sheet: str) -> SheetScan:
             continue
         end = _CELL_END.search(data, end_of_tag)
         value = _VALUE.search(data, end_of_tag, end.start() if end else len(data))
-        scan.formulas[where] = value.group(1).decode("utf-8", "replace") if value else None
+        stored = value.group(1).decode("utf-8", "replace") if value else ""
+        scan.formulas[where] = stored or None          # <v></v> (openpyxl writes it) stores nothing
     return scan
 
 
