@@ -1,7 +1,7 @@
 """Speed benchmark: every figure is a ratio against a baseline measured in the same run.
 
 Run from the repository root: ``python tests/benchmarks/bench.py [--quick]``.
-Needs the test extra plus python-calamine (``pip install -e '.[test,bench]'``).
+Needs the test extra (``pip install -e '.[test]'``); python-calamine is a dependency.
 Not part of the test run; results are recorded in DEVELOPERS.md.
 
 Targets (issue "Speed"):
