@@ -264,19 +264,23 @@ def test_labels_from_numbers_and_dates(tmp_path):
     assert table.treatments[:3] == ["0", "2.5", "2024-05-01"] and table.blocks[:3] == ["1"] * 3
 
 
-def test_non_finite_number(tmp_path):
-    rows = [list(r) for r in WIDE]
-    rows[1][1] = 12345.678
-    path = save(tmp_path, rows)
-    # No writer stores infinity; put an overflowing number into the sheet XML by hand.
-    patched = tmp_path / "inf.xlsx"
+def patched_sheet(path, patched, old: bytes, new: bytes):
+    """A copy of the workbook at ``path`` with ``old`` replaced by ``new`` in the first sheet's XML."""
     with zipfile.ZipFile(path) as src, zipfile.ZipFile(patched, "w") as dst:
         for item in src.infolist():
             data = src.read(item)
             if item.filename == "xl/worksheets/sheet1.xml":
-                assert b"<v>12345.678</v>" in data
-                data = data.replace(b"<v>12345.678</v>", b"<v>1e999</v>")
+                assert old in data
+                data = data.replace(old, new)
             dst.writestr(item, data)
+    return patched
+
+
+def test_non_finite_number(tmp_path):
+    rows = [list(r) for r in WIDE]
+    rows[1][1] = 12345.678
+    # No writer stores infinity; put an overflowing number into the sheet XML by hand.
+    patched = patched_sheet(save(tmp_path, rows), tmp_path / "inf.xlsx", b"<v>12345.678</v>", b"<v>1e999</v>")
     err = refused(patched, "A1:D4")
     assert (err.sheet, err.cell) == ("Trial", "B2") and "finite" in err.message
 
@@ -409,14 +413,7 @@ def test_formula_with_an_empty_stored_value_is_uncalculated(tmp_path, empty_valu
     # either, or no <v> at all, means no stored result.
     rows = [list(r) for r in WIDE]
     rows[1][2] = 777.25
-    path = save(tmp_path, rows)
-    patched = tmp_path / "formula.xlsx"
-    with zipfile.ZipFile(path) as src, zipfile.ZipFile(patched, "w") as dst:
-        for item in src.infolist():
-            data = src.read(item)
-            if item.filename == "xl/worksheets/sheet1.xml":
-                assert b"<v>777.25</v>" in data
-                data = data.replace(b"<v>777.25</v>", b"<f>B2*2</f>" + empty_value)
-            dst.writestr(item, data)
+    patched = patched_sheet(save(tmp_path, rows), tmp_path / "formula.xlsx", b"<v>777.25</v>",
+                            b"<f>B2*2</f>" + empty_value)
     err = refused(patched, "A1:D4")
     assert (err.sheet, err.cell) == ("Trial", "C2") and "never calculated" in err.message
