@@ -75,18 +75,18 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
     demo.add_argument("--folder", type=Path, default=Path("workbook-tools-demo"),
                       help="where to put the sample and its result (default ./workbook-tools-demo)")
     wanted = _command_in(argv)
-    for name, module, adder in EXTRA_COMMANDS:
+    for name, module, adder, _ in EXTRA_COMMANDS:
         if wanted in (None, name):  # import a command's module only when it may be used
             getattr(importlib.import_module(module), adder)(commands)
     return parser
 
 
-# command name, module, function that adds its parser
+# command name, module, function that adds its parser, function that runs it
 EXTRA_COMMANDS = (
-    ("run", "workbook_tools.jobs", "add_run_parser"),
-    ("batch", "workbook_tools.batch", "add_batch_parser"),
-    ("serve", "workbook_tools.service", "add_serve_parser"),
-    ("plan", "workbook_tools.plan", "add_plan_parser"),
+    ("run", "workbook_tools.jobs", "add_run_parser", "run_command"),
+    ("batch", "workbook_tools.batch", "add_batch_parser", "run_batch_command"),
+    ("serve", "workbook_tools.service", "add_serve_parser", "run_serve"),
+    ("plan", "workbook_tools.plan", "add_plan_parser", "run_plan_command"),
 )
 
 
@@ -95,7 +95,7 @@ def _command_in(argv) -> str | None:
     words = sys.argv[1:] if argv is None else list(argv)
     for word in words:
         if not word.startswith("-"):
-            return word if word in {"analyze", "demo", *(name for name, _, _ in EXTRA_COMMANDS)} else None
+            return word if word in {"analyze", "demo", *(name for name, *_ in EXTRA_COMMANDS)} else None
     return None
 
 
@@ -201,22 +201,9 @@ def main(argv=None) -> int:
             return run_analyze(args, say)
         if args.command == "demo":
             return run_demo(args, say)
-        if args.command == "run":
-            from workbook_tools.jobs import run_command
-
-            return run_command(args, say)
-        if args.command == "batch":
-            from workbook_tools.batch import run_batch_command
-
-            return run_batch_command(args, say)
-        if args.command == "serve":
-            from workbook_tools.service import run_serve
-
-            return run_serve(args, say)
-        if args.command == "plan":
-            from workbook_tools.plan import run_plan_command
-
-            return run_plan_command(args, say)
+        for name, module, _, runner in EXTRA_COMMANDS:
+            if args.command == name:
+                return getattr(importlib.import_module(module), runner)(args, say)
     except TrialInputError as error:
         print(f"workbook-tools: {error}", file=sys.stderr)
         return EXIT_INPUT

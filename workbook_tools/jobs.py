@@ -23,7 +23,7 @@ from workbook_tools.layout import SheetPlan, sheet_plans
 from workbook_tools.plan_jobs import (ANALYSIS_KINDS, PLAN_COLUMNS, PLAN_KIND, PlanJob, parse_kind, parse_plan_job,
                                       plan_sheet_name, prepare_plan, write_plan)
 from workbook_tools.ports import WorkbookPort
-from workbook_tools.sheets.book import DEFAULT_PREFIX, ResponseAnalysis, _context_lines, analyse_tables, audit_table
+from workbook_tools.sheets.book import DEFAULT_PREFIX, ResponseAnalysis, context_lines, analyse_tables, audit_table
 from workbook_tools.sheets.ranges import cell_address
 from workbook_tools.sheets.reader import TrialTable, cell_label, trials_from_values
 from workbook_tools.sheets.writer import FORBIDDEN, sheet_name
@@ -298,7 +298,7 @@ def _name_sheets(job: Job, analyses: list[ResponseAnalysis], taken: set[str]) ->
 def _write_job(port: WorkbookPort, job: Job, analyses, sheets, stamp: str, job_sheet: str) -> None:
     audit_name = sheets[-1][1]
     for analysis, name, plan in sheets[:-1]:
-        placements = port.write_sheet(name, plan, _context_lines(analysis, stamp, audit_name))
+        placements = port.write_sheet(name, plan, context_lines(analysis, stamp, audit_name))
         port.add_charts(name, plan.family, placements)
     run_options = {"job sheet": job_sheet, "job row": job.row, "range": job.range_text,
                    **job.read_options(), **job.engine_options(), "prefix": job.prefix}

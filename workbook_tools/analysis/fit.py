@@ -51,9 +51,13 @@ class AdditiveFit:
     fitted: np.ndarray
     residuals: np.ndarray
     sse: float
-    c_plus: np.ndarray
     leverage: np.ndarray
     solver: "AdditiveSolver"
+
+    @property
+    def c_plus(self) -> np.ndarray:
+        """Moore-Penrose inverse of C, from the solver that produced the fit."""
+        return self.solver.c_plus
 
 
 def _sum_by(index: np.ndarray, weights: np.ndarray, size: int) -> np.ndarray:
@@ -163,7 +167,7 @@ def fit_additive(design: BlockDesign, values: np.ndarray | None = None,
     fitted_centred = beta[design.block_index] + tau[design.treatment_index]
     residuals = centred - fitted_centred
     return AdditiveFit(
-        shift, beta, tau, fitted_centred + shift, residuals, float(residuals @ residuals), solver.c_plus,
+        shift, beta, tau, fitted_centred + shift, residuals, float(residuals @ residuals),
         solver.leverage(), solver,
     )
 

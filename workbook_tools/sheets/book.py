@@ -123,7 +123,8 @@ def analyses_json(analyses: list[ResponseAnalysis]) -> dict:
     return {"schema": SCHEMA_VERSION, "results": items}
 
 
-def _context_lines(analysis: ResponseAnalysis, stamp: str, audit_sheet: str) -> list[str]:
+def context_lines(analysis: ResponseAnalysis, stamp: str, audit_sheet: str) -> list[str]:
+    """The lines under a result sheet's title: what was analysed, the options, the audit sheet."""
     s = analysis.source
     opts = analysis.as_dict()["options"]
     response = f", response '{s['response']}'" if s["response"] else ""
@@ -184,7 +185,7 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     safety.replace_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
     for analysis, plan, name in names:
         ws = workbook.create_sheet(name)
-        placements = write_sheet(ws, plan, _context_lines(analysis, stamp, audit_name))
+        placements = write_sheet(ws, plan, context_lines(analysis, stamp, audit_name))
         add_result_charts(ws, plan.family, placements)
     audit_ws = workbook.create_sheet(audit_name)
     audit_ws.cell(1, 1, "Audit record of the analysis").font = TITLE_FONT
