@@ -13,6 +13,7 @@ import errno
 import hashlib
 import json
 import os
+import zipfile
 from pathlib import Path
 
 import numpy as np
@@ -56,11 +57,14 @@ def simulated(mishap: str | None, path: Path, monkeypatch):
 
         monkeypatch.setattr(safety.tempfile, "NamedTemporaryFile", read_only)
     elif mishap == "disk_full":
-        def half_written(self, filename):
-            Path(filename).write_bytes(b"PK\x03\x04 partly written")
-            raise OSError(errno.ENOSPC, "No space left on device")
+        real_writestr = zipfile.ZipFile.writestr
 
-        monkeypatch.setattr(openpyxl.Workbook, "save", half_written)
+        def half_written(self, name, data, *args, **kwargs):  # every save route writes its parts so
+            if "w" in self.mode and len(self.namelist()) >= 2:
+                raise OSError(errno.ENOSPC, "No space left on device")
+            return real_writestr(self, name, data, *args, **kwargs)
+
+        monkeypatch.setattr(zipfile.ZipFile, "writestr", half_written)
     elif mishap is not None:
         raise AssertionError(f"unknown mishap {mishap}")
     yield

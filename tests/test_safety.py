@@ -30,7 +30,7 @@ from PIL import Image
 
 from workbook_tools.analysis.errors import TrialInputError
 from workbook_tools.sheets.safety import (
-    TOOL_PROPERTY, atomic_save, default_output_path, open_for_writing, record_tool_sheets,
+    TOOL_PROPERTY, atomic_save, atomic_write, default_output_path, open_for_writing, record_tool_sheets,
     replace_tool_sheets, tool_sheet_names, what_would_be_lost,
 )
 
@@ -334,19 +334,15 @@ def test_disk_full_leaves_the_target_as_it_was_and_no_temporary_file(tmp_path, m
     if existing:
         target.write_bytes(plain_book(tmp_path).read_bytes())
     before = target.read_bytes() if existing else None
-    book = openpyxl.Workbook()
-    monkeypatch.setattr(book, "save", failing_save(OSError(errno.ENOSPC, "No space left on device")))
     with pytest.raises(TrialInputError, match="disk is full"):
-        atomic_save(book, target)
+        atomic_write(target, failing_save(OSError(errno.ENOSPC, "No space left on device")))
     assert (target.read_bytes() if existing else target.exists()) == (before if existing else False)
     assert leftovers(tmp_path) == []
 
 
 def test_permission_denied_is_worded_and_cleaned_up(tmp_path, monkeypatch):
-    book = openpyxl.Workbook()
-    monkeypatch.setattr(book, "save", failing_save(PermissionError(errno.EACCES, "Permission denied")))
     with pytest.raises(TrialInputError, match="No permission"):
-        atomic_save(book, tmp_path / "out.xlsx")
+        atomic_write(tmp_path / "out.xlsx", failing_save(PermissionError(errno.EACCES, "Permission denied")))
     assert leftovers(tmp_path) == [] and not (tmp_path / "out.xlsx").exists()
 
 

@@ -79,7 +79,7 @@ def write_batch_summary(rows: list[dict], out_dir) -> tuple[Path, Path]:
 
     xlsx_path = out_dir / f"{SUMMARY_NAME}.xlsx"
     csv_path = out_dir / f"{SUMMARY_NAME}.csv"
-    atomic_save(workbook, xlsx_path)
+    atomic_save(workbook, xlsx_path, own_sheets=workbook.sheetnames)  # a new workbook, all ours
     atomic_write_text(csv_path, summary_csv_text(rows))
     return xlsx_path, csv_path
 

@@ -150,5 +150,5 @@ def write_plan_book(target, layout: dict, plan: dict | None = None, *, sigma2_so
         add_power_chart(ws, power, len(tests), titles, plan["inputs"]["power"],
                         (power.header_row, power.first_col + len(tests) + 3))
     workbook.active = 0
-    atomic_save(workbook, target)
+    atomic_save(workbook, target, own_sheets=workbook.sheetnames)  # a new workbook, all ours
     return PlanBook(target, layout_range, run_order_range)

@@ -289,9 +289,17 @@ def _save_failure(exc: BaseException, target: Path) -> TrialInputError:
     return TrialInputError(f"{message} {kept}")
 
 
-def atomic_save(workbook, target_path) -> None:
-    """Save an openpyxl ``workbook`` atomically (see :func:`atomic_write`)."""
-    atomic_write(target_path, workbook.save)
+def atomic_save(workbook, target_path, own_sheets=None) -> None:
+    """Save an openpyxl ``workbook`` atomically (see :func:`atomic_write`).
+
+    ``own_sheets`` names the sheets this tool made (default: those recorded by
+    `record_tool_sheets`); their rows are written by the faster route of
+    :mod:`workbook_tools.sheets.package_writer`.
+    """
+    from workbook_tools.sheets.package_writer import save_workbook
+
+    fast = tool_sheet_names(workbook) if own_sheets is None else list(own_sheets)
+    atomic_write(target_path, lambda name: save_workbook(workbook, name, fast))
 
 
 def atomic_write_text(target_path, text: str) -> None:
