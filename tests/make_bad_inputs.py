@@ -252,7 +252,7 @@ def _entries() -> list[BadInput]:
         BadInput("infinity_in_sheet_xml", crafted_value("infinity_in_sheet_xml", "1E999"),
                  says=("not a finite number",), where=cell("C3")),
         BadInput("nan_in_sheet_xml", crafted_value("nan_in_sheet_xml", "NaN"),
-                 says=("could not be read as an Excel workbook",)),
+                 says=("not a finite number",), where=cell("C3")),
         BadInput("empty_block_label_with_data", book("empty_block_label_with_data",
                                                      grid_rows(blocks=["Day 1", None, "Day 3", "Day 4"])),
                  says=("block label is empty",), where=cell("A3")),

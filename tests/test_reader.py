@@ -24,11 +24,13 @@ from workbook_tools.sheets.reader import read_trials
 
 @pytest.fixture(autouse=True, params=["openpyxl", "calamine"])
 def reading_route(request, monkeypatch):
-    """Every reading test runs twice: through openpyxl and through the calamine + byte-scan route
-    that large sheets take (forced here by lowering its size threshold)."""
+    """Every reading test runs twice: through openpyxl (the route of names, tables and ranges
+    beyond the cell limit) and through the calamine + byte-scan route, as a large sheet takes it."""
     if request.param == "calamine":
         pytest.importorskip("python_calamine")
-        monkeypatch.setattr(reader, "FAST_SHEET_BYTES", -1)
+        monkeypatch.setattr(reader, "LARGE_SHEET_BYTES", -1)
+    else:
+        monkeypatch.setattr(reader, "_read_grid_fast", lambda *args: None)
     return request.param
 
 WIDE = [

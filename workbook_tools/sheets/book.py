@@ -22,7 +22,7 @@ from workbook_tools.layout import Column, Table, sheet_plans
 from workbook_tools.sheets import safety
 from workbook_tools.sheets.hidden import hidden_warning
 from workbook_tools.sheets.reader import TrialTable, read_trials
-from workbook_tools.sheets.result_charts import add_result_charts
+from workbook_tools.sheets.result_charts import add_result_charts, result_chart_requests
 from workbook_tools.sheets.writer import TITLE_FONT, apply_widths, sheet_name, write_sheet, write_table
 
 DEFAULT_PREFIX = "wbt-"
@@ -154,49 +154,86 @@ def audit_table(analyses: list[ResponseAnalysis], input_name: str, stamp: str, r
     return Table("audit", "Audit record", (Column("Item", "text"), Column("Value", "text")), rows)
 
 
+def _result_sheet_names(analyses, prefix: str, user_sheets: set[str]):
+    """(analysis, plan, sheet name) for every result sheet, and the audit sheet's name."""
+    taken = set(user_sheets)
+    names: list[tuple] = []
+    for analysis in analyses:
+        suffix = analysis.source["response"] if len(analyses) > 1 else None
+        for plan in sheet_plans(analysis.as_dict()):
+            name = sheet_name(prefix, plan.family, suffix, taken | {prefix + "audit"})
+            taken.add(name)
+            names.append((analysis, plan, name))
+    audit_name = sheet_name(prefix, "audit", None, set(user_sheets) | {n for *_, n in names})
+    return names, audit_name
+
+
+def _fill_result_sheets(workbook, names, audit_name, analyses, input_name: str, stamp: str,
+                        run_options: dict, chart_requests: dict | None = None) -> str:
+    """Create and fill every result sheet and the audit sheet; returns the sheet to open on.
+
+    Charts are added to the sheets, or, given ``chart_requests``, listed there by sheet.
+    """
+    for analysis, plan, name in names:
+        ws = workbook.create_sheet(name)
+        placements = write_sheet(ws, plan, context_lines(analysis, stamp, audit_name))
+        if chart_requests is None:
+            add_result_charts(ws, plan.family, placements)
+        else:
+            chart_requests[name] = result_chart_requests(ws, plan.family, placements)
+    audit_ws = workbook.create_sheet(audit_name)
+    audit_ws.cell(1, 1, "Audit record of the analysis").font = TITLE_FONT
+    widths: dict[int, int] = {}
+    write_table(audit_ws, audit_table(analyses, input_name, stamp, run_options), 3, 1, widths)
+    apply_widths(audit_ws, widths)
+    audit_ws.column_dimensions["B"].width = 100
+    first_result = names[0][2]
+    for ws in workbook.worksheets:
+        ws.sheet_view.tabSelected = ws.title == first_result
+    return first_result
+
+
 def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in_place: bool = False,
                    prefix: str = DEFAULT_PREFIX, run_options: dict | None = None) -> Path:
     """Write the result sheets of every analysis into a copy of the workbook (or in place).
 
     The user's own sheets are never touched; sheets this tool wrote before are
-    replaced. The file is saved atomically.
+    replaced. The file is saved atomically. When the package suits it (see
+    :mod:`workbook_tools.sheets.appending`), the user's parts are copied as they are
+    and the result sheets added; otherwise the workbook goes through openpyxl.
 
     Returns
     -------
     pathlib.Path
         The workbook written.
     """
-    workbook, target = safety.open_for_writing(input_path, out, in_place=in_place)
+    import openpyxl
+
+    from workbook_tools.sheets import appending
+
+    source, target, macros = safety.output_target(input_path, out, in_place=in_place)
     stamp = dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "")
-    plans = []
-    for analysis in analyses:
-        suffix = (analysis.source["response"] if len(analyses) > 1 else None)
-        plans.append((analysis, suffix, sheet_plans(analysis.as_dict())))
+    input_name, run_options = Path(input_path).name, run_options or {}
+    package = appending.inspect(source, safety.TOOL_PROPERTY)
+    if package is not None:
+        names, audit_name = _result_sheet_names(analyses, prefix, set(package.sheet_names))
+        scratch = openpyxl.Workbook()
+        scratch.remove(scratch.active)
+        requests: dict[str, list] = {}
+        first = _fill_result_sheets(scratch, names, audit_name, analyses, input_name, stamp, run_options, requests)
+        record = [n for *_, n in names] + [audit_name]
+        safety.atomic_write(target, lambda temporary: appending.append_sheets(
+            package, scratch, temporary, tool_property=safety.TOOL_PROPERTY, record=record, active=first,
+            chart_requests=requests))
+        return target
+
+    workbook = safety.load_for_writing(source, macros)
     previous = set(safety.tool_sheet_names(workbook))
     user_sheets = {ws.title for ws in workbook.worksheets} - previous
-    taken = set(user_sheets)
-    names: list[tuple] = []
-    for analysis, suffix, sheet_list in plans:
-        for plan in sheet_list:
-            name = sheet_name(prefix, plan.family, suffix, taken | {prefix + "audit"})
-            taken.add(name)
-            names.append((analysis, plan, name))
-    audit_name = sheet_name(prefix, "audit", None, user_sheets | {n for *_, n in names})
+    names, audit_name = _result_sheet_names(analyses, prefix, user_sheets)
     safety.replace_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
-    for analysis, plan, name in names:
-        ws = workbook.create_sheet(name)
-        placements = write_sheet(ws, plan, context_lines(analysis, stamp, audit_name))
-        add_result_charts(ws, plan.family, placements)
-    audit_ws = workbook.create_sheet(audit_name)
-    audit_ws.cell(1, 1, "Audit record of the analysis").font = TITLE_FONT
-    widths: dict[int, int] = {}
-    write_table(audit_ws, audit_table(analyses, Path(input_path).name, stamp, run_options or {}), 3, 1, widths)
-    apply_widths(audit_ws, widths)
-    audit_ws.column_dimensions["B"].width = 100
+    first = _fill_result_sheets(workbook, names, audit_name, analyses, input_name, stamp, run_options)
     safety.record_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
-    first_result = workbook[names[0][2]]
-    workbook.active = workbook.worksheets.index(first_result)
-    for ws in workbook.worksheets:
-        ws.sheet_view.tabSelected = ws is first_result
+    workbook.active = workbook.worksheets.index(workbook[first])
     safety.atomic_save(workbook, target)
     return target

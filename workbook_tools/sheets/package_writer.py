@@ -14,7 +14,6 @@ compare the two, canonicalised, on generated sheets).
 from __future__ import annotations
 
 import datetime
-from io import BytesIO
 from zipfile import ZIP_DEFLATED, ZipFile
 
 from openpyxl.cell.cell import Cell
@@ -24,7 +23,9 @@ from openpyxl.drawing.spreadsheet_drawing import SpreadsheetDrawing
 from openpyxl.utils import get_column_letter
 from openpyxl.worksheet._writer import WorksheetWriter
 from openpyxl.writer.excel import ExcelWriter
-from openpyxl.xml.functions import fromstring
+from openpyxl.packaging.relationship import RelationshipList
+from openpyxl.xml.constants import SHEET_MAIN_NS
+from openpyxl.xml.functions import tostring
 
 # openpyxl's data types of a number (or blank), a text, a true/false, and an empty text read from a file
 PLAIN_TYPES = {"n", "s", "b", "inlineStr"}
@@ -54,8 +55,11 @@ def plain_cells(ws) -> bool:
     return True
 
 
-def sheet_data_xml(ws) -> str:
-    """The ``<sheetData>`` element of a sheet of plain cells, as openpyxl would write it."""
+def sheet_data_xml(ws, style_offset: int = 0) -> str:
+    """The ``<sheetData>`` element of a sheet of plain cells, as openpyxl would write it.
+
+    ``style_offset`` is added to every style index.
+    """
     styles = ws.parent._cell_styles
     dimensions = ws.row_dimensions
     rows: dict[int, list] = {}
@@ -64,6 +68,7 @@ def sheet_data_xml(ws) -> str:
     for row in dimensions.keys() - rows.keys():   # rows with only a height or a style
         rows[row] = []
     letters: dict[int, str] = {}
+    style_ids: dict[bytes, int] = {}   # a style's index, looked up once per distinct style
     parts = ["<sheetData>"]
     for row_idx in sorted(rows):
         attributes = f' r="{row_idx}"'
@@ -72,7 +77,8 @@ def sheet_data_xml(ws) -> str:
         parts.append(f"<row{attributes}>")
         for cell in rows[row_idx]:
             value = cell._value
-            styled = cell.has_style
+            style = cell._style
+            styled = style is not None and any(style)
             if value is None and not styled:
                 continue
             col = cell.column
@@ -81,7 +87,11 @@ def sheet_data_xml(ws) -> str:
                 letter = letters[col] = get_column_letter(col)
             head = f'<c r="{letter}{row_idx}"'
             if styled:
-                head += f' s="{styles.add(cell._style)}"'
+                key = style.tobytes()
+                index = style_ids.get(key)
+                if index is None:
+                    index = style_ids[key] = styles.add(style) + style_offset
+                head += f' s="{index}"'
             kind = cell.data_type
             if value is None or value == "":
                 parts.append(f'{head} t="{"inlineStr" if kind == "s" else kind}"/>')
@@ -95,11 +105,58 @@ def sheet_data_xml(ws) -> str:
     return "".join(parts)
 
 
+class _Collector:
+    """Stands in for openpyxl's XML stream: keeps the text of each element sent to it."""
+
+    def __init__(self):
+        self.parts: list[str] = []
+
+    def send(self, element):
+        if element is not None and element is not True:
+            self.parts.append(tostring(element, encoding="unicode"))
+
+    def close(self):
+        pass
+
+
 class _PlainRowsWriter(WorksheetWriter):
-    """openpyxl's sheet writer, in memory, with the rows built by `sheet_data_xml`."""
+    """openpyxl's sheet writer for every element but the rows, which `sheet_data_xml` builds.
+
+    The parts are joined as text in memory, instead of streamed to a temporary file.
+    """
+
+    def __init__(self, ws, style_offset: int = 0):   # no temporary file, no stream
+        self.ws = ws
+        self.ws._hyperlinks = []
+        self.ws._comments = []
+        self.out = None
+        self._rels = RelationshipList()
+        self.xf = _Collector()
+        self.style_offset = style_offset
 
     def write_rows(self):
-        self.xf.send(fromstring(sheet_data_xml(self.ws)))
+        self.xf.parts.append(sheet_data_xml(self.ws, self.style_offset))
+
+    def read(self) -> bytes:
+        return (f'<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n<worksheet xmlns="{SHEET_MAIN_NS}">'
+                + "".join(self.xf.parts) + "</worksheet>").encode("utf-8")
+
+
+def sheet_xml(ws, *, drawing_target: str | None = None, style_offset: int = 0) -> tuple[bytes, bytes | None]:
+    """A sheet of plain cells as a worksheet part and its relationships part (None without any).
+
+    ``drawing_target`` names the part of the sheet's drawing; ``style_offset`` is added to
+    every cell's style index (for styles appended to another workbook's style sheet).
+    """
+    if not plain_cells(ws):
+        raise ValueError(f"sheet {ws.title!r} holds more than plain cells")
+    writer = _PlainRowsWriter(ws, style_offset)
+    writer.write()
+    for rel in writer._rels:
+        if "drawing" in rel.Type:
+            rel.Target = drawing_target
+    rels = tostring(writer._rels.to_tree()) if len(writer._rels) else None
+    return writer.read(), rels
 
 
 class _Writer(ExcelWriter):
@@ -113,7 +170,7 @@ class _Writer(ExcelWriter):
         ws._drawing = SpreadsheetDrawing()
         ws._drawing.charts = ws._charts
         ws._drawing.images = ws._images
-        writer = _PlainRowsWriter(ws, out=BytesIO())
+        writer = _PlainRowsWriter(ws)
         writer.write()
         ws._rels = writer._rels
         self._archive.writestr(ws.path[1:], writer.read())

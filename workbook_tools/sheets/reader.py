@@ -146,17 +146,19 @@ def _read_grid(path: Path, range_text, read_only) -> "_Grid":
     return grid
 
 
-FAST_SHEET_BYTES = 1024 * 1024
-"""Sheets whose XML is larger than this are read through python-calamine (see fast_grid)."""
+LARGE_SHEET_BYTES = 1024 * 1024
+"""A sheet whose XML is larger than this is held to the cell limit by the range as given."""
 
 
 def _read_grid_fast(path: Path, range_text, read_only) -> "_Grid | None":
-    """The calamine route for a large sheet and a range given by cell references.
+    """The calamine route (see fast_grid) for a range given by cell references.
 
-    The package has passed `_check_file` already.
+    The package has passed `_check_file` already. A large sheet's range is held to
+    the cell limit as given; a small sheet's range beyond the limit goes to openpyxl,
+    which sizes the grid by the cells the sheet holds.
 
-    Returns None when the route does not apply (small sheet, a name or table instead of
-    cell references, calamine not installed, cells it cannot place): openpyxl then reads.
+    Returns None when the route does not apply (a name or table instead of cell
+    references, calamine not installed, cells it cannot place): openpyxl then reads.
     """
     if read_only is False:
         return None
@@ -174,9 +176,12 @@ def _read_grid_fast(path: Path, range_text, read_only) -> "_Grid | None":
     with zipfile.ZipFile(path) as package:
         sheet = sheet or fast_grid.active_sheet(package)
         part = next((p for p, name in sheet_parts(package).items() if name == sheet), None)
-        if part is None or part not in package.namelist() or package.getinfo(part).file_size <= FAST_SHEET_BYTES:
+        if part is None or part not in package.namelist():
             return None
+        large = package.getinfo(part).file_size > LARGE_SHEET_BYTES
     rng = CellRange(sheet, *bounds)
+    if not large and (rng.max_row - rng.min_row + 1) * (rng.max_col - rng.min_col + 1) > limits.active().max_cells:
+        return None
     limits.check_cells(rng.sheet, rng.a1, rng.max_row - rng.min_row + 1, rng.max_col - rng.min_col + 1)
     try:
         read = fast_grid.read_cells(path, rng)
@@ -319,8 +324,10 @@ def _kind(value) -> str | None:
     """Name of a kind of cell content that is not a number, for messages."""
     if isinstance(value, bool):
         return f"the logical value {str(value).upper()}"
-    if isinstance(value, dt.datetime):
+    if isinstance(value, dt.datetime) and value.time() != dt.time(0):
         return f"a date and time ({value.isoformat(sep=' ')})"
+    if isinstance(value, dt.datetime):   # readers differ in returning a date or its midnight
+        return f"a date ({value.date().isoformat()})"
     if isinstance(value, dt.date):
         return f"a date ({value.isoformat()})"
     if isinstance(value, dt.time):

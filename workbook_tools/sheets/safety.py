@@ -374,8 +374,8 @@ def _same_file(a: Path, b: Path) -> bool:
     return a.resolve() == b.resolve()
 
 
-def open_for_writing(input_path, output_path=None, *, in_place=False):
-    """Load a workbook for adding result sheets and decide where it will be saved.
+def output_target(input_path, output_path=None, *, in_place=False) -> tuple[Path, Path, bool]:
+    """Check the input and decide where results will be saved, before anything is read.
 
     Parameters
     ----------
@@ -388,9 +388,8 @@ def open_for_writing(input_path, output_path=None, *, in_place=False):
 
     Returns
     -------
-    (openpyxl.Workbook, pathlib.Path)
-        The loaded workbook (macros kept for ``.xlsm``, external links kept,
-        rich text kept) and the path to pass to `atomic_save`.
+    (pathlib.Path, pathlib.Path, bool)
+        The input, the path to pass to `atomic_write`, and whether the input holds macros.
     """
     source = Path(input_path)
     if not source.is_file():
@@ -417,11 +416,29 @@ def open_for_writing(input_path, output_path=None, *, in_place=False):
     if not macros and suffix == ".xlsm":
         raise TrialInputError(f"'{source.name}' has no macros, so the output should end in .xlsx, "
                               f"not '{target.name}'.")
+    return source, target, macros
+
+
+def load_for_writing(source: Path, macros: bool):
+    """Load the user's workbook into openpyxl for adding sheets (macros, external links, rich text kept)."""
     try:
-        workbook = openpyxl.load_workbook(source, keep_vba=macros, keep_links=True, rich_text=True)
+        return openpyxl.load_workbook(source, keep_vba=macros, keep_links=True, rich_text=True)
     except Exception as exc:
         raise TrialInputError(f"'{source.name}' could not be read as an Excel workbook ({exc}).") from exc
-    return workbook, target
+
+
+def open_for_writing(input_path, output_path=None, *, in_place=False):
+    """Load a workbook for adding result sheets and decide where it will be saved.
+
+    See `output_target` for the parameters and checks.
+
+    Returns
+    -------
+    (openpyxl.Workbook, pathlib.Path)
+        The loaded workbook (see `load_for_writing`) and the path to pass to `atomic_save`.
+    """
+    source, target, macros = output_target(input_path, output_path, in_place=in_place)
+    return load_for_writing(source, macros), target
 
 
 def tool_sheet_names(workbook) -> list[str]:

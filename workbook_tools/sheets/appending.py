@@ -1,0 +1,400 @@
+"""Add result sheets to a copy of a workbook package, leaving every part already there as it was.
+
+Loading a workbook into openpyxl and saving it again rewrites every part, and drops
+what openpyxl does not model (see :mod:`workbook_tools.sheets.safety`): formula
+results, form controls, text boxes. This route instead copies the user's package
+part by part and only adds to it: the result sheets, their drawings and charts
+(serialised by openpyxl from a scratch workbook that holds only them), their cell
+styles appended to the package's style sheet, and the entries that make them part
+of the workbook (the sheet list, relationships, content types, the custom property
+that records the tool's sheets). Two small edits touch the user's parts: the
+workbook opens on the first result sheet, and the user's sheet tabs are no longer
+marked selected (two selected tabs would open as a sheet group).
+
+`inspect` says whether a package suits this route; when it does not (a strict-schema
+workbook, a document type definition, sheets the tool wrote before, which must be
+replaced), the caller uses the openpyxl route.
+
+References
+----------
+ECMA-376 Office Open XML File Formats, 5th ed., Part 1 (SpreadsheetML: CT_Workbook,
+CT_Stylesheet, CT_Worksheet) and Part 2 (Open Packaging Conventions: content types,
+relationships).
+"""
+
+from __future__ import annotations
+
+import json
+import posixpath
+import re
+import zipfile
+from dataclasses import dataclass, field
+from io import BytesIO
+from pathlib import Path
+
+from lxml import etree
+from openpyxl.drawing.spreadsheet_drawing import SpreadsheetDrawing
+from openpyxl.styles.cell_style import CellStyle
+from openpyxl.styles.numbers import BUILTIN_FORMATS_MAX_SIZE, NumberFormat
+from openpyxl.xml.functions import tostring
+
+MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
+DOC_REL = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
+PKG_REL = "http://schemas.openxmlformats.org/package/2006/relationships"
+CONTENT_TYPES_NS = "http://schemas.openxmlformats.org/package/2006/content-types"
+CUSTOM_NS = "http://schemas.openxmlformats.org/officeDocument/2006/custom-properties"
+VT_NS = "http://schemas.openxmlformats.org/officeDocument/2006/docPropsVTypes"
+CUSTOM_FMTID = "{D5CDD505-2E9C-101B-9397-08002B2CF9AE}"
+
+WORKSHEET_TYPE = "application/vnd.openxmlformats-officedocument.spreadsheetml.worksheet+xml"
+DRAWING_TYPE = "application/vnd.openxmlformats-officedocument.drawing+xml"
+CHART_TYPE = "application/vnd.openxmlformats-officedocument.drawingml.chart+xml"
+CUSTOM_TYPE = "application/vnd.openxmlformats-officedocument.custom-properties+xml"
+
+CONTENT_TYPES = "[Content_Types].xml"
+ROOT_RELS = "_rels/.rels"
+STYLE_LISTS = ("numFmts", "fonts", "fills", "borders", "cellStyleXfs", "cellXfs")
+_PARSER = etree.XMLParser(resolve_entities=False, no_network=True, load_dtd=False, huge_tree=False,
+                          remove_blank_text=False)
+_TAB_SELECTED = re.compile(rb'\stabSelected="(?:1|true)"')
+
+
+@dataclass
+class Package:
+    """What the route needs to know of the user's package, read once by `inspect`."""
+
+    path: Path
+    workbook_part: str
+    sheet_names: list[str]
+    sheet_parts: list[str]               # worksheet and chartsheet parts of the workbook
+    styles_part: str
+    custom_part: str | None
+    names: set[str] = field(default_factory=set)   # every part name in the package
+
+
+def _parse(package: zipfile.ZipFile, name: str):
+    root = etree.fromstring(package.read(name), _PARSER)
+    if root.getroottree().docinfo.doctype:
+        raise ValueError("document type definition")
+    return root
+
+
+def _rels_path(part: str) -> str:
+    folder, base = posixpath.split(part)
+    return posixpath.join(folder, "_rels", base + ".rels")
+
+
+def _target(folder: str, target: str) -> str:
+    return target.lstrip("/") if target.startswith("/") else posixpath.normpath(posixpath.join(folder, target))
+
+
+def inspect(path, tool_property: str) -> Package | None:
+    """Read the package's sheet list and parts; None when the route does not suit it.
+
+    Parameters
+    ----------
+    path : path-like
+        The user's workbook.
+    tool_property : str
+        Name of the custom property recording the tool's sheets; a package with
+        any recorded sheet still present goes to the openpyxl route, which replaces them.
+    """
+    path = Path(path)
+    try:
+        with zipfile.ZipFile(path) as package:
+            names = set(package.namelist())
+            if CONTENT_TYPES not in names or ROOT_RELS not in names:
+                return None
+            root_rels = _parse(package, ROOT_RELS)
+            office = [r.get("Target", "") for r in root_rels if r.get("Type") == DOC_REL + "/officeDocument"]
+            custom = [r.get("Target", "") for r in root_rels if r.get("Type") == DOC_REL + "/custom-properties"]
+            if len(office) != 1:
+                return None
+            workbook_part = _target("", office[0])
+            workbook = _parse(package, workbook_part)
+            if workbook.tag != f"{{{MAIN}}}workbook" or workbook.find(f"{{{MAIN}}}sheets") is None:
+                return None
+            folder = posixpath.dirname(workbook_part)
+            rels = {r.get("Id"): r for r in _parse(package, _rels_path(workbook_part))}
+            styles = [_target(folder, r.get("Target", "")) for r in rels.values()
+                      if r.get("Type") == DOC_REL + "/styles"]
+            if len(styles) != 1 or styles[0] not in names:
+                return None
+            style_root = _parse(package, styles[0])
+            if any(style_root.find(f"{{{MAIN}}}{tag}") is None for tag in ("fonts", "fills", "borders", "cellXfs")):
+                return None
+            sheet_names, sheet_parts = [], []
+            for sheet in workbook.find(f"{{{MAIN}}}sheets"):
+                rel = rels.get(sheet.get(f"{{{DOC_REL}}}id"))
+                sheet_names.append(sheet.get("name", ""))
+                if rel is not None and rel.get("TargetMode") != "External":
+                    sheet_parts.append(_target(folder, rel.get("Target", "")))
+            custom_part = _target("", custom[0]) if len(custom) == 1 and _target("", custom[0]) in names else None
+            if custom_part is not None:
+                recorded = _recorded(_parse(package, custom_part), tool_property)
+                if {n.casefold() for n in recorded} & {n.casefold() for n in sheet_names}:
+                    return None
+    except (OSError, KeyError, ValueError, zipfile.BadZipFile, etree.XMLSyntaxError):
+        return None
+    return Package(path, workbook_part, sheet_names, sheet_parts, styles[0], custom_part, names)
+
+
+def _recorded(custom_root, tool_property: str) -> list[str]:
+    for prop in custom_root:
+        if prop.get("name") == tool_property and len(prop):
+            try:
+                names = json.loads(prop[0].text or "")
+            except ValueError:
+                return []
+            return [n for n in names if isinstance(n, str)] if isinstance(names, list) else []
+    return []
+
+
+def _free(names: set[str], pattern: str) -> int:
+    """The next number ``n`` such that ``pattern.format(n)`` is not a part name."""
+    taken = [int(m.group(1)) for m in (re.fullmatch(pattern.replace("{}", r"(\d+)"), n) for n in names) if m]
+    return max(taken, default=0) + 1
+
+
+def _namespaced(elements) -> list:
+    """openpyxl's style elements carry no namespace; the same elements in SpreadsheetML's, unprefixed."""
+    text = "".join(tostring(element, encoding="unicode") for element in elements)
+    return list(etree.fromstring(f'<styleSheet xmlns="{MAIN}">{text}</styleSheet>', _PARSER))
+
+
+def style_lists(workbook) -> dict[str, list]:
+    """The number formats, fonts, fills, borders and cell styles (``xf``) of an openpyxl workbook.
+
+    The same elements openpyxl's ``write_stylesheet`` writes, in SpreadsheetML's namespace,
+    without the named styles, colours and table styles it also writes.
+    """
+    xfs = []
+    for style in workbook._cell_styles:
+        xf = CellStyle.from_array(style)
+        if style.alignmentId:
+            xf.alignment = workbook._alignments[style.alignmentId]
+        if style.protectionId:
+            xf.protection = workbook._protections[style.protectionId]
+        xfs.append(xf)
+    lists = {
+        "numFmts": [NumberFormat(i, code) for i, code in enumerate(workbook._number_formats, BUILTIN_FORMATS_MAX_SIZE)],
+        "fonts": list(workbook._fonts), "fills": list(workbook._fills), "borders": list(workbook._borders),
+        "cellXfs": xfs,
+    }
+    tags = {"numFmts": "numFmt"}   # a number format names its element only inside its list
+    return {tag: _namespaced(item.to_tree(tags.get(tag)) for item in items) for tag, items in lists.items()}
+
+
+def _merge_styles(styles_xml: bytes, scratch) -> tuple[bytes, int]:
+    """Append the scratch workbook's formats, fonts, fills, borders and cell styles.
+
+    Returns the new style sheet and the offset to add to a scratch cell-style index.
+    """
+    root = etree.fromstring(styles_xml, _PARSER)
+    theirs = {tag: root.find(f"{{{MAIN}}}{tag}") for tag in STYLE_LISTS}
+    mine = style_lists(scratch)
+    if theirs["numFmts"] is None:
+        theirs["numFmts"] = etree.Element(f"{{{MAIN}}}numFmts")
+        root.insert(0, theirs["numFmts"])
+    offsets = {tag: len(theirs[tag]) for tag in ("fonts", "fills", "borders")}
+    custom_ids = [int(n.get("numFmtId", "0")) for n in theirs["numFmts"]]
+    next_id = max(custom_ids + [163]) + 1
+    number_ids = {}
+    for fmt in mine["numFmts"]:
+        number_ids[fmt.get("numFmtId")] = str(next_id)
+        fmt.set("numFmtId", str(next_id))
+        theirs["numFmts"].append(fmt)
+        next_id += 1
+    for tag in ("fonts", "fills", "borders"):
+        for item in mine[tag]:
+            theirs[tag].append(item)
+    xf_offset = len(theirs["cellXfs"])
+    for xf in mine["cellXfs"]:
+        for attribute, tag in (("fontId", "fonts"), ("fillId", "fills"), ("borderId", "borders")):
+            xf.set(attribute, str(int(xf.get(attribute, "0")) + offsets[tag]))
+        xf.set("numFmtId", number_ids.get(xf.get("numFmtId", "0"), xf.get("numFmtId", "0")))
+        xf.set("xfId", "0")
+        theirs["cellXfs"].append(xf)
+    for tag in STYLE_LISTS:
+        if theirs[tag] is not None:
+            theirs[tag].set("count", str(len(theirs[tag])))
+    if not len(theirs["numFmts"]):
+        root.remove(theirs["numFmts"])
+    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True), xf_offset
+
+
+def _custom_properties(existing: bytes | None, tool_property: str, names: list[str]) -> bytes:
+    root = (etree.fromstring(existing, _PARSER) if existing is not None
+            else etree.Element(f"{{{CUSTOM_NS}}}Properties", nsmap={None: CUSTOM_NS, "vt": VT_NS}))
+    for prop in list(root):
+        if prop.get("name") == tool_property:
+            root.remove(prop)
+    pids = [int(p.get("pid", "1")) for p in root if (p.get("pid") or "").isdigit()]
+    prop = etree.SubElement(root, f"{{{CUSTOM_NS}}}property", fmtid=CUSTOM_FMTID,
+                            pid=str(max(pids + [1]) + 1), name=tool_property)
+    etree.SubElement(prop, f"{{{VT_NS}}}lpwstr").text = json.dumps(list(names), ensure_ascii=False)
+    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+
+
+def _new_id(existing: set[str]) -> str:
+    n = len(existing) + 1
+    while f"rId{n}" in existing:
+        n += 1
+    existing.add(f"rId{n}")
+    return f"rId{n}"
+
+
+def append_sheets(package: Package, scratch, filename, *, tool_property: str, record: list[str],
+                  active: str, chart_requests: dict[str, list] | None = None) -> None:
+    """Write ``package`` plus every sheet of the ``scratch`` workbook to ``filename``.
+
+    Parameters
+    ----------
+    package : Package
+        From `inspect`.
+    scratch : openpyxl.Workbook
+        A workbook holding only the new sheets (plain cells, charts), named as they
+        should appear; each sheet's cells may use any of its styles.
+    filename : path-like
+        Where to write (a temporary file of `safety.atomic_write`).
+    tool_property, record : str, list of str
+        The custom property that records the tool's sheets, and the names to record.
+    active : str
+        The sheet the workbook opens on (one of the scratch sheets).
+    chart_requests : dict, optional
+        Sheet name -> ``(chart function, keyword arguments)`` pairs of
+        :mod:`workbook_tools.sheets.charts`, made from templates (see
+        :mod:`workbook_tools.sheets.chart_templates`) rather than built; charts
+        already on a scratch sheet are serialised by openpyxl.
+    """
+    from workbook_tools.sheets.chart_templates import chart_part
+    from workbook_tools.sheets.package_writer import sheet_xml
+
+    with zipfile.ZipFile(package.path) as source:
+        names = set(package.names)
+        added: dict[str, bytes] = {}
+        prepared: dict[int, bytes] = {}       # chart parts made from templates, by stand-in
+        overrides: list[tuple[str, str]] = []
+        sheet_number = _free(names, "xl/worksheets/sheet{}.xml")
+        drawing_number = _free(names, "xl/drawings/drawing{}.xml")
+        chart_number = _free(names, "xl/charts/chart{}.xml")
+        new_sheets = []
+        for ws in scratch.worksheets:
+            part = f"xl/worksheets/sheet{sheet_number}.xml"
+            sheet_number += 1
+            for add, kwargs in (chart_requests or {}).get(ws.title, []):
+                made = chart_part(add, ws.title, **kwargs)
+                if made is None:     # a chart that cannot be templated is built on the scratch sheet
+                    add(ws, **kwargs)
+                    continue
+                xml, stand_in = made
+                ws._charts.append(stand_in)
+                prepared[id(stand_in)] = xml
+            drawing = None
+            if ws._charts:
+                drawing = SpreadsheetDrawing()
+                drawing.charts = ws._charts
+                drawing._id = drawing_number
+                drawing_number += 1
+                for chart in ws._charts:
+                    chart._id = chart_number
+                    chart_number += 1
+                    added[chart.path[1:]] = prepared.get(id(chart)) or tostring(chart._write())
+                    overrides.append((chart.path, CHART_TYPE))
+                added[drawing.path[1:]] = tostring(drawing._write())
+                added[_rels_path(drawing.path[1:])] = tostring(drawing._write_rels())
+                overrides.append((drawing.path, DRAWING_TYPE))
+            new_sheets.append((ws, part, drawing))
+        for ws in scratch.worksheets:   # every cell style in the scratch list, before it is merged
+            for cell in ws._cells.values():
+                if cell.has_style:
+                    scratch._cell_styles.add(cell._style)
+        styles, xf_offset = _merge_styles(source.read(package.styles_part), scratch)
+        for ws, part, drawing in new_sheets:
+            xml, rels = sheet_xml(ws, drawing_target=None if drawing is None else drawing.path,
+                                  style_offset=xf_offset)
+            added[part] = xml
+            if rels is not None:
+                added[_rels_path(part)] = rels
+            overrides.append(("/" + part, WORKSHEET_TYPE))
+
+        edited = {package.styles_part: styles}
+        edited.update(_workbook_edits(source, package, [(ws.title, part) for ws, part, _ in new_sheets], active))
+        custom_part = package.custom_part or "docProps/custom.xml"
+        edited[custom_part] = _custom_properties(
+            source.read(package.custom_part) if package.custom_part else None, tool_property, record)
+        if package.custom_part is None:
+            overrides.append(("/" + custom_part, CUSTOM_TYPE))
+            edited[ROOT_RELS] = _add_relationship(source.read(ROOT_RELS), PKG_REL, DOC_REL + "/custom-properties",
+                                                  custom_part)
+        edited[CONTENT_TYPES] = _content_types(source.read(CONTENT_TYPES), overrides)
+        for part in package.sheet_parts:
+            if part in package.names and part not in edited:
+                data = source.read(part)
+                head = data[:data.find(b"sheetData")] if b"sheetData" in data else data
+                if _TAB_SELECTED.search(head):
+                    edited[part] = _TAB_SELECTED.sub(b"", head, count=1) + data[len(head):]
+
+        with zipfile.ZipFile(filename, "w", zipfile.ZIP_DEFLATED, allowZip64=True) as out:
+            for info in source.infolist():
+                data = edited.pop(info.filename, None)
+                out.writestr(info, source.read(info) if data is None else data)
+            for name, data in list(edited.items()) + list(added.items()):
+                out.writestr(name, data)
+
+
+def _add_relationship(rels_xml: bytes, namespace: str, kind: str, target: str) -> bytes:
+    root = etree.fromstring(rels_xml, _PARSER)
+    rel_id = _new_id({r.get("Id") for r in root})
+    etree.SubElement(root, f"{{{namespace}}}Relationship", Id=rel_id, Type=kind, Target=target)
+    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+
+
+def _content_types(xml: bytes, overrides: list[tuple[str, str]]) -> bytes:
+    root = etree.fromstring(xml, _PARSER)
+    defaults = {d.get("Extension", "").lower() for d in root if etree.QName(d).localname == "Default"}
+    for extension, kind in (("rels", "application/vnd.openxmlformats-package.relationships+xml"),
+                            ("xml", "application/xml")):
+        if extension not in defaults:
+            root.insert(0, etree.Element(f"{{{CONTENT_TYPES_NS}}}Default", Extension=extension, ContentType=kind))
+    for part, kind in overrides:
+        etree.SubElement(root, f"{{{CONTENT_TYPES_NS}}}Override", PartName=part, ContentType=kind)
+    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+
+
+def _workbook_edits(source, package: Package, sheets: list[tuple[str, str]], active: str) -> dict[str, bytes]:
+    """The workbook part and its relationships, with the new sheets listed and ``active`` opened on."""
+    workbook = _parse(source, package.workbook_part)
+    rels_part = _rels_path(package.workbook_part)
+    rels = _parse(source, rels_part)
+    folder = posixpath.dirname(package.workbook_part)
+    ids = {r.get("Id") for r in rels}
+    sheet_list = workbook.find(f"{{{MAIN}}}sheets")
+    sheet_id = max([int(s.get("sheetId", "0")) for s in sheet_list if (s.get("sheetId") or "").isdigit()] + [0])
+    for name, part in sheets:
+        rel_id = _new_id(ids)
+        etree.SubElement(rels, f"{{{PKG_REL}}}Relationship", Id=rel_id, Type=DOC_REL + "/worksheet",
+                         Target=posixpath.relpath(part, folder) if folder else part)
+        sheet_id += 1
+        element = etree.SubElement(sheet_list, f"{{{MAIN}}}sheet", name=name, sheetId=str(sheet_id))
+        element.set(f"{{{DOC_REL}}}id", rel_id)
+    position = [s.get("name") for s in sheet_list].index(active)
+    views = workbook.find(f"{{{MAIN}}}bookViews")
+    if views is None:
+        views = etree.Element(f"{{{MAIN}}}bookViews")
+        sheet_list.addprevious(views)
+    view = views.find(f"{{{MAIN}}}workbookView")
+    if view is None:
+        view = etree.SubElement(views, f"{{{MAIN}}}workbookView")
+    view.set("activeTab", str(position))
+    if int(view.get("firstSheet", "0") or 0) > position:
+        view.set("firstSheet", str(position))
+    dump = {"xml_declaration": True, "encoding": "UTF-8", "standalone": True}
+    return {package.workbook_part: etree.tostring(workbook, **dump), rels_part: etree.tostring(rels, **dump)}
+
+
+def write_to_bytes(package: Package, scratch, **options) -> bytes:
+    """`append_sheets` into memory (for tests)."""
+    buffer = BytesIO()
+    append_sheets(package, scratch, buffer, **options)
+    return buffer.getvalue()
