@@ -389,8 +389,7 @@ def qq_points(standardized_residuals) -> dict:
     -------
     dict
         ``theoretical`` (normal quantiles at Blom's plotting positions
-        ``(i - 3/8) / (n + 1/4)``), ``sample`` (the residuals sorted ascending), ``order``
-        (indices into the input such that ``input[order] == sample``) and
+        ``(i - 3/8) / (n + 1/4)``), ``sample`` (the residuals sorted ascending) and
         ``plotting_position`` (the formula, as text).
 
     References
@@ -398,14 +397,12 @@ def qq_points(standardized_residuals) -> dict:
     Blom, G. (1958). Statistical Estimates and Transformed Beta-Variables. Wiley, New York.
     """
     values = np.asarray(standardized_residuals, dtype=float).ravel()
-    finite = np.flatnonzero(np.isfinite(values))
-    order = finite[np.argsort(values[finite])]
-    n = order.size
+    sample = np.sort(values[np.isfinite(values)])
+    n = sample.size
     positions = (np.arange(1, n + 1) - 0.375) / (n + 0.25)
     return {
         "theoretical": special.ndtri(positions),
-        "sample": values[order],
-        "order": order,
+        "sample": sample,
         "plotting_position": "Blom (i - 3/8)/(n + 1/4)",
     }
 
@@ -455,8 +452,8 @@ def _quartiles(ordered: np.ndarray) -> tuple[float, float]:
 def average_ranks(values: np.ndarray) -> np.ndarray:
     """Ranks 1..t within each row, tied values sharing their average rank (vectorised)."""
     b, t = values.shape
-    order = np.argsort(values, axis=1, kind="stable")
-    ordered = np.take_along_axis(values, order, axis=1)
+    order = np.argsort(values, axis=1)     # tied values get one average rank, so any order of ties will do
+    ordered = np.sort(values, axis=1)      # the same values as taking them in that order, and faster
     new_run = np.ones((b, t), dtype=bool)
     new_run[:, 1:] = ordered[:, 1:] != ordered[:, :-1]
     if new_run.all():                      # no ties anywhere: ranks are the sorted positions
