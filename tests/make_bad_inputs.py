@@ -210,19 +210,6 @@ def clashing_sheet(wb, ws):
     wb.create_sheet("wbt-anova")["A1"] = "my own notes"
 
 
-def textbox(folder: Path) -> Path:
-    import xlsxwriter
-
-    path = folder / "textbox_in_place.xlsx"
-    workbook = xlsxwriter.Workbook(str(path))
-    ws = workbook.add_worksheet(SHEET)
-    for r, row in enumerate(grid_rows()):
-        ws.write_row(r, 0, row)
-    ws.insert_textbox("G2", "Randomised by hand, see notebook p. 12")
-    workbook.close()
-    return path
-
-
 def disconnected_body():
     return [[10.1, 11.3, None, None], [9.8, 11.0, None, None], [None, None, 12.4, 13.0], [None, None, 12.1, 12.9]]
 
@@ -353,8 +340,6 @@ def _entries() -> list[BadInput]:
                  args=(*WIDE, "--out", "{folder}/output_is_the_input.xlsx"), says=("is the input workbook itself",)),
         BadInput("output_not_a_workbook_name", book("output_not_a_workbook_name"),
                  args=(*WIDE, "--out", "{folder}/results.csv"), says=("must end in .xlsx or .xlsm",)),
-        BadInput("in_place_would_lose_a_textbox", textbox, args=(*WIDE, "--in-place"),
-                 says=("cannot be saved in place", "text boxes")),
     ]
 
 

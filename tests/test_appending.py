@@ -140,20 +140,71 @@ def test_existing_custom_properties_and_styles_are_kept(tmp_path):
     assert TOOL_PROPERTY in wb.custom_doc_props.names
 
 
-def test_a_rerun_on_the_output_replaces_the_result_sheets(tmp_path):
+def _reachable_parts(path: Path) -> tuple[set[str], set[str]]:
+    """(parts reachable from the package root through relationships, every part of the package)."""
+    from workbook_tools.sheets.package_parts import relationship_graph, rels_part_of
+
+    with zipfile.ZipFile(path) as package:
+        graph = relationship_graph(package, appending._PARSER)
+        everything = set(package.namelist())
+    seen, todo = set(), [""]
+    while todo:
+        part = todo.pop()
+        if part not in seen:
+            seen.add(part)
+            todo.extend(graph.get(part, ()))
+    reachable = {p for p in seen if p} | {rels_part_of(p) for p in seen if p} | {"_rels/.rels", "[Content_Types].xml"}
+    return reachable & everything, everything
+
+
+def test_a_rerun_on_the_output_replaces_the_result_sheets(tmp_path, monkeypatch, fixed_clock):
+    def extra(wb):
+        wb["Notes"].print_area = "A1:C10"     # a sheet-scoped defined name, on a sheet after the results
+
     source = trial_book(tmp_path / "trial.xlsx")
     first = write_analyses(source, analyse_book(source, "Runs!A1:C13", **LONG), out=tmp_path / "first.xlsx")
+    wb = openpyxl.load_workbook(first)
+    wb.move_sheet("Notes", offset=len(wb.sheetnames))     # the user moves a sheet behind the results
+    extra(wb)
+    wb.save(first)
     second = write_analyses(first, analyse_book(first, "Runs!A1:C13", **LONG, compare="lsd"),
                             out=tmp_path / "second.xlsx")
-    names = openpyxl.load_workbook(second).sheetnames
-    assert names.count("wbt-anova") == 1 and len(names) == len(openpyxl.load_workbook(first).sheetnames)
+    after = openpyxl.load_workbook(second)
+    assert after.sheetnames.count("wbt-anova") == 1 and len(after.sheetnames) == len(wb.sheetnames)
+    assert after.sheetnames[:2] == ["Runs", "Notes"]          # the results came out and went back at the end
+    assert after["Notes"].print_area == "'Notes'!$A$1:$C$10"
+    assert sum(len(ws._charts) for ws in after.worksheets) == 3
+    assert "compare lsd" in after["wbt-anova"]["A3"].value
+    reachable, everything = _reachable_parts(second)
+    assert everything == reachable                            # nothing of the earlier results is left over
+    with zipfile.ZipFile(second) as package:
+        declared = {o.get("PartName").lstrip("/") for o in etree.fromstring(package.read("[Content_Types].xml"))
+                    if o.get("PartName")}
+    assert declared <= everything
+
+
+def test_a_rerun_writes_what_the_openpyxl_route_writes(tmp_path, monkeypatch, fixed_clock):
+    source = trial_book(tmp_path / "trial.xlsx")
+    first = write_analyses(source, analyse_book(source, "Runs!A1:C13", **LONG), out=tmp_path / "first.xlsx")
+    analyses = analyse_book(first, "Runs!A1:C13", **LONG)
+    appended = write_analyses(first, analyses, out=tmp_path / "appended.xlsx")
+    with monkeypatch.context() as patch:
+        patch.setattr(appending, "inspect", lambda *args: None)
+        through_openpyxl = write_analyses(first, analyses, out=tmp_path / "openpyxl.xlsx")
+    a, b = openpyxl.load_workbook(appended), openpyxl.load_workbook(through_openpyxl)
+    assert a.sheetnames == b.sheetnames and a.active.title == b.active.title
+    for name in tool_sheet_names(b):
+        assert [[_cell_facts(c) for c in row] for row in a[name].iter_rows()] == \
+            [[_cell_facts(c) for c in row] for row in b[name].iter_rows()], name
 
 
 def test_unsuitable_packages_go_to_openpyxl(tmp_path):
     source = trial_book(tmp_path / "trial.xlsx")
     assert appending.inspect(source, TOOL_PROPERTY) is not None
     out = write_analyses(source, analyse_book(source, "Runs!A1:C13", **LONG), out=tmp_path / "out.xlsx")
-    assert appending.inspect(out, TOOL_PROPERTY) is None          # its result sheets must be replaced
+    again = appending.inspect(out, TOOL_PROPERTY)                 # its result sheets are to be replaced
+    assert again is not None and sorted(again.replaced) == sorted(tool_sheet_names(openpyxl.load_workbook(out)))
+    assert again.user_sheets == ["Runs", "Notes"]
     with zipfile.ZipFile(source) as package:
         parts = {n: package.read(n) for n in package.namelist()}
     parts["xl/workbook.xml"] = b'<!DOCTYPE workbook [<!ENTITY x "y">]>' + parts["xl/workbook.xml"].split(b"?>", 1)[-1]

@@ -19,6 +19,7 @@ import re
 import shutil
 import subprocess
 import sys
+import zipfile
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -445,7 +446,7 @@ def test_in_place_on_a_plain_workbook_keeps_the_user_sheets(tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == [book.name]
 
 
-def test_in_place_on_a_workbook_with_a_textbox_is_refused(tmp_path):
+def _graft_book_with_textbox(tmp_path: Path) -> Path:
     pressures, batches, grid = _montgomery_grid()
     book = tmp_path / "with textbox.xlsx"
     wb = xlsxwriter.Workbook(book)
@@ -454,6 +455,21 @@ def test_in_place_on_a_workbook_with_a_textbox_is_refused(tmp_path):
         ws.write_row(i, 0, row)
     ws.insert_textbox("G2", "Batches are blocks.")
     wb.close()
+    return book
+
+
+def test_in_place_on_a_workbook_with_a_textbox_keeps_it(tmp_path):
+    book = _graft_book_with_textbox(tmp_path)
+    code, _, err = run_cli("analyze", book, "--range", "Graft!A1:E7", "--layout", "wide", "--in-place")
+    assert code == 0, err
+    with zipfile.ZipFile(book) as package:
+        assert b"Batches are blocks." in package.read("xl/drawings/drawing1.xml")
+    assert sorted(p.name for p in tmp_path.iterdir()) == [book.name]
+
+
+def test_in_place_on_a_workbook_with_a_textbox_is_refused_on_the_openpyxl_route(tmp_path, monkeypatch):
+    monkeypatch.setattr("workbook_tools.sheets.appending.inspect", lambda *args: None)
+    book = _graft_book_with_textbox(tmp_path)
     before = digest(book)
     code, _, err = run_cli("analyze", book, "--range", "Graft!A1:E7", "--layout", "wide", "--in-place")
     assert code == 2

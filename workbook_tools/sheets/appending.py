@@ -38,6 +38,8 @@ from openpyxl.styles.cell_style import CellStyle
 from openpyxl.styles.numbers import BUILTIN_FORMATS_MAX_SIZE, NumberFormat
 from openpyxl.xml.functions import tostring
 
+from workbook_tools.sheets.package_parts import parts_to_drop, relationship_graph, rels_part_of
+
 MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
 DOC_REL = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
 PKG_REL = "http://schemas.openxmlformats.org/package/2006/relationships"
@@ -70,6 +72,12 @@ class Package:
     styles_part: str
     custom_part: str | None
     names: set[str] = field(default_factory=set)   # every part name in the package
+    replaced: dict[str, str] = field(default_factory=dict)   # earlier result sheet -> its part
+
+    @property
+    def user_sheets(self) -> list[str]:
+        """The sheets that stay: every sheet but the earlier result sheets."""
+        return [n for n in self.sheet_names if n not in self.replaced]
 
 
 def _parse(package: zipfile.ZipFile, name: str):
@@ -77,11 +85,6 @@ def _parse(package: zipfile.ZipFile, name: str):
     if root.getroottree().docinfo.doctype:
         raise ValueError("document type definition")
     return root
-
-
-def _rels_path(part: str) -> str:
-    folder, base = posixpath.split(part)
-    return posixpath.join(folder, "_rels", base + ".rels")
 
 
 def _target(folder: str, target: str) -> str:
@@ -96,8 +99,8 @@ def inspect(path, tool_property: str) -> Package | None:
     path : path-like
         The user's workbook.
     tool_property : str
-        Name of the custom property recording the tool's sheets; a package with
-        any recorded sheet still present goes to the openpyxl route, which replaces them.
+        Name of the custom property recording the tool's sheets; those still present
+        are the earlier result sheets, which the new ones replace.
     """
     path = Path(path)
     try:
@@ -115,7 +118,7 @@ def inspect(path, tool_property: str) -> Package | None:
             if workbook.tag != f"{{{MAIN}}}workbook" or workbook.find(f"{{{MAIN}}}sheets") is None:
                 return None
             folder = posixpath.dirname(workbook_part)
-            rels = {r.get("Id"): r for r in _parse(package, _rels_path(workbook_part))}
+            rels = {r.get("Id"): r for r in _parse(package, rels_part_of(workbook_part))}
             styles = [_target(folder, r.get("Target", "")) for r in rels.values()
                       if r.get("Type") == DOC_REL + "/styles"]
             if len(styles) != 1 or styles[0] not in names:
@@ -123,20 +126,22 @@ def inspect(path, tool_property: str) -> Package | None:
             style_root = _parse(package, styles[0])
             if any(style_root.find(f"{{{MAIN}}}{tag}") is None for tag in ("fonts", "fills", "borders", "cellXfs")):
                 return None
-            sheet_names, sheet_parts = [], []
+            sheet_names, sheet_parts, part_of = [], [], {}
             for sheet in workbook.find(f"{{{MAIN}}}sheets"):
                 rel = rels.get(sheet.get(f"{{{DOC_REL}}}id"))
                 sheet_names.append(sheet.get("name", ""))
                 if rel is not None and rel.get("TargetMode") != "External":
                     sheet_parts.append(_target(folder, rel.get("Target", "")))
+                    part_of[sheet.get("name", "")] = sheet_parts[-1]
             custom_part = _target("", custom[0]) if len(custom) == 1 and _target("", custom[0]) in names else None
-            if custom_part is not None:
-                recorded = _recorded(_parse(package, custom_part), tool_property)
-                if {n.casefold() for n in recorded} & {n.casefold() for n in sheet_names}:
-                    return None
+            recorded = set() if custom_part is None else {
+                n.casefold() for n in _recorded(_parse(package, custom_part), tool_property)}
+            replaced = {n: part_of.get(n) for n in sheet_names if n.casefold() in recorded}
+            if None in replaced.values() or len(replaced) == len(sheet_names):
+                return None     # a result sheet without a part of its own, or nothing of the user's left
     except (OSError, KeyError, ValueError, zipfile.BadZipFile, etree.XMLSyntaxError):
         return None
-    return Package(path, workbook_part, sheet_names, sheet_parts, styles[0], custom_part, names)
+    return Package(path, workbook_part, sheet_names, sheet_parts, styles[0], custom_part, names, replaced)
 
 
 def _recorded(custom_root, tool_property: str) -> list[str]:
@@ -244,6 +249,17 @@ def _new_id(existing: set[str]) -> str:
     return f"rId{n}"
 
 
+def _dropped_parts(source: zipfile.ZipFile, package: Package) -> set[str]:
+    """The earlier result sheets' parts, what only they lead to, their relationships parts, and the
+    calculation chain (which may list their cells; a spreadsheet application rebuilds it)."""
+    if not package.replaced:
+        return set()
+    graph = relationship_graph(source, _PARSER)
+    parts = parts_to_drop(graph, set(package.replaced.values()))
+    parts |= {p for p in graph.get(package.workbook_part, ()) if p.endswith("calcChain.xml")}
+    return {name for p in parts for name in (p, rels_part_of(p)) if name in package.names}
+
+
 def append_sheets(package: Package, scratch, filename, *, tool_property: str, record: list[str],
                   active: str, chart_requests: dict[str, list] | None = None) -> None:
     """Write ``package`` plus every sheet of the ``scratch`` workbook to ``filename``.
@@ -271,6 +287,7 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
     from workbook_tools.sheets.package_writer import sheet_xml
 
     with zipfile.ZipFile(package.path) as source:
+        dropped = _dropped_parts(source, package)
         names = set(package.names)
         added: dict[str, bytes] = {}
         prepared: dict[int, bytes] = {}       # chart parts made from templates, by stand-in
@@ -302,7 +319,7 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
                     added[chart.path[1:]] = prepared.get(id(chart)) or tostring(chart._write())
                     overrides.append((chart.path, CHART_TYPE))
                 added[drawing.path[1:]] = tostring(drawing._write())
-                added[_rels_path(drawing.path[1:])] = tostring(drawing._write_rels())
+                added[rels_part_of(drawing.path[1:])] = tostring(drawing._write_rels())
                 overrides.append((drawing.path, DRAWING_TYPE))
             new_sheets.append((ws, part, drawing))
         for ws in scratch.worksheets:   # every cell style in the scratch list, before it is merged
@@ -315,11 +332,12 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
                                   style_offset=xf_offset)
             added[part] = xml
             if rels is not None:
-                added[_rels_path(part)] = rels
+                added[rels_part_of(part)] = rels
             overrides.append(("/" + part, WORKSHEET_TYPE))
 
         edited = {package.styles_part: styles}
-        edited.update(_workbook_edits(source, package, [(ws.title, part) for ws, part, _ in new_sheets], active))
+        edited.update(_workbook_edits(source, package, [(ws.title, part) for ws, part, _ in new_sheets], active,
+                                      dropped))
         custom_part = package.custom_part or "docProps/custom.xml"
         edited[custom_part] = _custom_properties(
             source.read(package.custom_part) if package.custom_part else None, tool_property, record)
@@ -327,9 +345,9 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
             overrides.append(("/" + custom_part, CUSTOM_TYPE))
             edited[ROOT_RELS] = _add_relationship(source.read(ROOT_RELS), PKG_REL, DOC_REL + "/custom-properties",
                                                   custom_part)
-        edited[CONTENT_TYPES] = _content_types(source.read(CONTENT_TYPES), overrides)
+        edited[CONTENT_TYPES] = _content_types(source.read(CONTENT_TYPES), overrides, dropped)
         for part in package.sheet_parts:
-            if part in package.names and part not in edited:
+            if part in package.names and part not in edited and part not in dropped:
                 data = source.read(part)
                 head = data[:data.find(b"sheetData")] if b"sheetData" in data else data
                 if _TAB_SELECTED.search(head):
@@ -337,6 +355,8 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
 
         with zipfile.ZipFile(filename, "w", zipfile.ZIP_DEFLATED, allowZip64=True) as out:
             for info in source.infolist():
+                if info.filename in dropped:
+                    continue
                 data = edited.pop(info.filename, None)
                 out.writestr(info, source.read(info) if data is None else data)
             for name, data in list(edited.items()) + list(added.items()):
@@ -350,8 +370,11 @@ def _add_relationship(rels_xml: bytes, namespace: str, kind: str, target: str) -
     return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
 
 
-def _content_types(xml: bytes, overrides: list[tuple[str, str]]) -> bytes:
+def _content_types(xml: bytes, overrides: list[tuple[str, str]], dropped: set[str]) -> bytes:
     root = etree.fromstring(xml, _PARSER)
+    for override in list(root):
+        if (override.get("PartName") or "").lstrip("/") in dropped:
+            root.remove(override)
     defaults = {d.get("Extension", "").lower() for d in root if etree.QName(d).localname == "Default"}
     for extension, kind in (("rels", "application/vnd.openxmlformats-package.relationships+xml"),
                             ("xml", "application/xml")):
@@ -362,12 +385,41 @@ def _content_types(xml: bytes, overrides: list[tuple[str, str]]) -> bytes:
     return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
 
 
-def _workbook_edits(source, package: Package, sheets: list[tuple[str, str]], active: str) -> dict[str, bytes]:
-    """The workbook part and its relationships, with the new sheets listed and ``active`` opened on."""
+def _drop_sheets(workbook, rels, folder: str, package: Package, dropped: set[str]) -> None:
+    """Take the earlier result sheets (and any dropped part) out of the workbook and its relationships.
+
+    Sheet-scoped defined names follow their sheets: those of a dropped sheet go, the
+    others' sheet positions (``localSheetId``) shift to the sheets' new positions.
+    """
+    for rel in list(rels):
+        if rel.get("TargetMode") != "External" and _target(folder, rel.get("Target", "")) in dropped:
+            rels.remove(rel)
+    sheet_list = workbook.find(f"{{{MAIN}}}sheets")
+    gone = []
+    for position, sheet in enumerate(list(sheet_list)):
+        if sheet.get("name") in package.replaced:
+            gone.append(position)
+            sheet_list.remove(sheet)
+    names = workbook.find(f"{{{MAIN}}}definedNames")
+    for name in [] if names is None else list(names):
+        local = name.get("localSheetId")
+        if local is None or not local.isdigit():
+            continue
+        if int(local) in gone:
+            names.remove(name)
+        else:
+            name.set("localSheetId", str(int(local) - sum(1 for g in gone if g < int(local))))
+
+
+def _workbook_edits(source, package: Package, sheets: list[tuple[str, str]], active: str,
+                    dropped: set[str]) -> dict[str, bytes]:
+    """The workbook part and its relationships: earlier result sheets out, the new sheets in, ``active`` opened on."""
     workbook = _parse(source, package.workbook_part)
-    rels_part = _rels_path(package.workbook_part)
+    rels_part = rels_part_of(package.workbook_part)
     rels = _parse(source, rels_part)
     folder = posixpath.dirname(package.workbook_part)
+    if package.replaced:
+        _drop_sheets(workbook, rels, folder, package, dropped)
     ids = {r.get("Id") for r in rels}
     sheet_list = workbook.find(f"{{{MAIN}}}sheets")
     sheet_id = max([int(s.get("sheetId", "0")) for s in sheet_list if (s.get("sheetId") or "").isdigit()] + [0])

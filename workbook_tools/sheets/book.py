@@ -200,7 +200,9 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     The user's own sheets are never touched; sheets this tool wrote before are
     replaced. The file is saved atomically. When the package suits it (see
     :mod:`workbook_tools.sheets.appending`), the user's parts are copied as they are
-    and the result sheets added; otherwise the workbook goes through openpyxl.
+    and the result sheets added, so saving in place loses nothing; otherwise the
+    workbook goes through openpyxl, and saving in place is refused where openpyxl
+    would drop something.
 
     Returns
     -------
@@ -211,12 +213,12 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
 
     from workbook_tools.sheets import appending
 
-    source, target, macros = safety.output_target(input_path, out, in_place=in_place)
+    package = appending.inspect(input_path, safety.TOOL_PROPERTY)
+    source, target, macros = safety.output_target(input_path, out, in_place=in_place, lossless=package is not None)
     stamp = dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "")
     input_name, run_options = Path(input_path).name, run_options or {}
-    package = appending.inspect(source, safety.TOOL_PROPERTY)
     if package is not None:
-        names, audit_name = _result_sheet_names(analyses, prefix, set(package.sheet_names))
+        names, audit_name = _result_sheet_names(analyses, prefix, set(package.user_sheets))
         scratch = openpyxl.Workbook()
         scratch.remove(scratch.active)
         requests: dict[str, list] = {}

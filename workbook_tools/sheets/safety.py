@@ -1,9 +1,12 @@
 """Write result sheets without harming the user's workbook.
 
-By default results go to a new file beside the input. Saving in place is
-allowed only when the package holds nothing openpyxl would drop, and then
-atomically: a temporary file in the same folder, flushed to disk, then
-``os.replace``. Sheets the tool made are recorded in a custom document
+By default results go to a new file beside the input. Saving is atomic: a
+temporary file in the same folder, flushed to disk, then ``os.replace``. The
+headless main job usually copies the user's parts as they are and adds its
+sheets (:mod:`workbook_tools.sheets.appending`); where a workbook goes through
+openpyxl instead (the job runner, or a package that route does not suit),
+saving in place is allowed only when the package holds nothing openpyxl would
+drop. Sheets the tool made are recorded in a custom document
 property, so a re-run replaces those and never a sheet the user made.
 
 What openpyxl 3.1.5 keeps and drops was measured by building workbooks with
@@ -374,7 +377,7 @@ def _same_file(a: Path, b: Path) -> bool:
     return a.resolve() == b.resolve()
 
 
-def output_target(input_path, output_path=None, *, in_place=False) -> tuple[Path, Path, bool]:
+def output_target(input_path, output_path=None, *, in_place=False, lossless=False) -> tuple[Path, Path, bool]:
     """Check the input and decide where results will be saved, before anything is read.
 
     Parameters
@@ -384,7 +387,11 @@ def output_target(input_path, output_path=None, *, in_place=False) -> tuple[Path
     output_path : str or os.PathLike, optional
         Where to save. Naming the input itself needs ``in_place=True``.
     in_place : bool
-        Save over the input; refused when `what_would_be_lost` lists anything.
+        Save over the input; refused when `what_would_be_lost` lists anything,
+        unless ``lossless``.
+    lossless : bool
+        The workbook will be written by copying its parts (see
+        :mod:`workbook_tools.sheets.appending`), so nothing can be lost.
 
     Returns
     -------
@@ -402,7 +409,7 @@ def output_target(input_path, output_path=None, *, in_place=False) -> tuple[Path
         if not in_place:
             raise TrialInputError(f"The output '{target.name}' is the input workbook itself; choose another "
                                   "file name, or ask for saving in place.")
-        lost = what_would_be_lost(source)
+        lost = [] if lossless else what_would_be_lost(source)
         if lost:
             raise TrialInputError(f"'{source.name}' cannot be saved in place because these would be lost: "
                                   + "; ".join(lost) + ". The results can be written to a new file instead.")
