@@ -154,7 +154,7 @@ def read_cells(path, rng: CellRange) -> FastRead:
     finally:
         workbook.close()
     last_row = min(rng.max_row, len(values))
-    width = max((len(r) for r in values), default=0)
+    width = max(map(len, values), default=0)
     last_col = min(rng.max_col, width)
     first, stop = rng.min_col - 1, last_col
     # calamine shows a blank as "", which the reader's rules take as blank already

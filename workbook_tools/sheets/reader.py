@@ -18,6 +18,8 @@ import re
 import warnings
 import zipfile
 from dataclasses import dataclass
+from itertools import islice
+from operator import itemgetter
 from pathlib import Path
 
 import openpyxl
@@ -283,7 +285,8 @@ class _Grid:
         self.rng = rng
         self.rows = rows
         self.nrows = len(rows)
-        self.ncols = max((len(r) for r in rows), default=0)
+        self.ncols = max(map(len, rows), default=0)
+        self.full_width = min(map(len, rows), default=0)   # every row is at least this long
 
     @classmethod
     def read(cls, ws, rng: CellRange) -> "_Grid":
@@ -588,6 +591,8 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
     used = (b_col, t_col, *r_cols)
     blocks = _column_labels(grid, b_col, "block label")
     treatments = _column_labels(grid, t_col, "treatment label")
+    if None not in blocks and None not in treatments:   # every row labelled (the usual case, checked in C)
+        return [_long_table(grid, headers[j], j, range(len(blocks)), blocks, treatments, **options) for j in r_cols]
     kept = []
     for n, (b, t) in enumerate(zip(blocks, treatments)):
         if b is None or t is None:
@@ -603,21 +608,26 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
 
 def _column(grid: _Grid, j: int) -> list:
     """The body values (below the header row) of column ``j``."""
+    if j < grid.full_width:
+        return list(map(itemgetter(j), islice(grid.rows, 1, None)))
     return [row[j] if j < len(row) else None for row in grid.rows[1:]]
 
 
 def _column_labels(grid: _Grid, j: int, what: str) -> list:
     """Labels of a long-layout column, each distinct cell converted once."""
     cells = _column(grid, j)
-    converted = {}
+    if bool in set(map(type, cells)):   # TRUE and 1 label differently, so they cannot share a key
+        return [_label(grid, n + 1, j, what) for n in range(len(cells))]
     try:
-        for n, value in enumerate(cells):
-            key = (bool, value) if value.__class__ is bool else value   # TRUE and 1 label differently
-            if key not in converted:
-                converted[key] = _label(grid, n + 1, j, what)
-        return [converted[(bool, value) if value.__class__ is bool else value] for value in cells]
+        distinct = dict.fromkeys(cells)
     except TypeError:  # a value that cannot be a dictionary key: convert cell by cell
         return [_label(grid, n + 1, j, what) for n in range(len(cells))]
+    for value in distinct:   # in order of first appearance, so a refusal names the first such cell
+        try:
+            distinct[value] = cell_label(value, None, what)
+        except TrialInputError as error:
+            grid.fail(error.message, cells.index(value) + 1, j)
+    return list(map(distinct.__getitem__, cells))
 
 
 def _long_table(grid: _Grid, response: str, j: int, kept, blocks, treatments, **options) -> TrialTable:
@@ -625,6 +635,11 @@ def _long_table(grid: _Grid, response: str, j: int, kept, blocks, treatments, **
     cells = _column(grid, j)
     letters = get_column_letter(grid.rng.min_col + j)
     first_row = grid.rng.min_row
+    values = [cells[n] for n in kept]
+    if set(map(type, values)) == {float} and all(map(math.isfinite, values)):   # plain numbers: no cell rule
+        return TrialTable(grid.rng.sheet, grid.rng, "long", response, [blocks[n] for n in kept],
+                          [treatments[n] for n in kept], values,
+                          [f"{letters}{first_row + n + 1}" for n in kept], [])
     out_blocks, out_treatments, values, addresses, missing = [], [], [], [], []
     for n in kept:
         value = cells[n]
