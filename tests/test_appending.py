@@ -284,3 +284,37 @@ def test_the_output_opens_on_the_first_result_sheet_with_one_selected_tab(tmp_pa
         for name in package.namelist():
             if name.startswith(("xl/worksheets/sheet", "xl/charts/", "xl/drawings/drawing")):
                 assert name in declared, name
+
+
+EXCEL_WORKBOOK_HEAD = (
+    b'<workbook xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main" '
+    b'xmlns:r="http://schemas.openxmlformats.org/officeDocument/2006/relationships" '
+    b'xmlns:mc="http://schemas.openxmlformats.org/markup-compatibility/2006" mc:Ignorable="x15" '
+    b'xmlns:x15="http://schemas.microsoft.com/office/spreadsheetml/2010/11/main">'
+)
+
+
+def test_a_package_with_markup_compatibility_and_extensions_keeps_them(tmp_path):
+    """Spreadsheet applications write prefixes, ignorable namespaces and extension lists (ECMA-376 Part 3)."""
+    source = trial_book(tmp_path / "trial.xlsx")
+    with zipfile.ZipFile(source) as package:
+        parts = {n: package.read(n) for n in package.namelist()}
+    workbook = parts["xl/workbook.xml"]
+    body = workbook[workbook.index(b"<workbookPr"):].replace(b"</workbook>", b"")
+    body = body.replace(b'<sheet name=', b'<sheet xmlns:r="http://schemas.openxmlformats.org/officeDocument/2006/'
+                        b'relationships" name=')
+    extension = (b'<extLst><ext uri="{140A7094-0E35-4892-8432-C4D2E57EDEB5}">'
+                 b'<x15:workbookPr chartTrackingRefBase="1"/></ext></extLst>')
+    parts["xl/workbook.xml"] = b"<?xml version='1.0' encoding='UTF-8'?>" + EXCEL_WORKBOOK_HEAD + body + extension \
+        + b"</workbook>"
+    crafted = tmp_path / "crafted.xlsx"
+    with zipfile.ZipFile(crafted, "w", zipfile.ZIP_DEFLATED) as package:
+        for name, data in parts.items():
+            package.writestr(name, data)
+    assert appending.inspect(crafted, TOOL_PROPERTY) is not None
+    out = write_analyses(crafted, analyse_book(crafted, "Runs!A1:C13", **LONG), out=tmp_path / "out.xlsx")
+    with zipfile.ZipFile(out) as package:
+        root = etree.fromstring(package.read("xl/workbook.xml"))
+    assert root.get("{http://schemas.openxmlformats.org/markup-compatibility/2006}Ignorable") == "x15"
+    assert root.nsmap.get("x15") and root[-1].tag.endswith("extLst")
+    assert "wbt-anova" in openpyxl.load_workbook(out).sheetnames

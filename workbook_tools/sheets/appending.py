@@ -358,6 +358,8 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
                 if info.filename in dropped:
                     continue
                 data = edited.pop(info.filename, None)
+                if info.compress_type not in (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED):
+                    info.compress_type = zipfile.ZIP_DEFLATED   # what every spreadsheet application reads
                 out.writestr(info, source.read(info) if data is None else data)
             for name, data in list(edited.items()) + list(added.items()):
                 out.writestr(name, data)
