@@ -58,7 +58,7 @@ ROOT_RELS = "_rels/.rels"
 STYLE_LISTS = ("numFmts", "fonts", "fills", "borders", "cellStyleXfs", "cellXfs")
 _PARSER = etree.XMLParser(resolve_entities=False, no_network=True, load_dtd=False, huge_tree=False,
                           remove_blank_text=False)
-_TAB_SELECTED = re.compile(rb'\stabSelected="(?:1|true)"')
+_TAB_SELECTED = re.compile(rb"""\stabSelected=(["'])(?:1|true)\1""")
 
 
 @dataclass
@@ -124,8 +124,10 @@ def inspect(path, tool_property: str) -> Package | None:
             if len(styles) != 1 or styles[0] not in names:
                 return None
             style_root = _parse(package, styles[0])
-            if any(style_root.find(f"{{{MAIN}}}{tag}") is None for tag in ("fonts", "fills", "borders", "cellXfs")):
-                return None
+            if any(style_root.find(f"{{{MAIN}}}{tag}") is None
+                   for tag in ("fonts", "fills", "borders", "cellStyleXfs", "cellXfs")) \
+                    or not len(style_root.find(f"{{{MAIN}}}cellStyleXfs")):
+                return None     # the appended cell styles refer to the first cell-style format
             sheet_names, sheet_parts, part_of = [], [], {}
             for sheet in workbook.find(f"{{{MAIN}}}sheets"):
                 rel = rels.get(sheet.get(f"{{{DOC_REL}}}id"))
@@ -156,8 +158,10 @@ def _recorded(custom_root, tool_property: str) -> list[str]:
 
 
 def _free(names: set[str], pattern: str) -> int:
-    """The next number ``n`` such that ``pattern.format(n)`` is not a part name."""
-    taken = [int(m.group(1)) for m in (re.fullmatch(pattern.replace("{}", r"(\d+)"), n) for n in names) if m]
+    """The next number ``n`` such that ``pattern.format(n)`` names no part (part names ignore case)."""
+    prefix, suffix = pattern.split("{}")
+    shape = re.compile(re.escape(prefix) + r"([0-9]+)" + re.escape(suffix), re.IGNORECASE)
+    taken = [int(m.group(1)) for m in map(shape.fullmatch, names) if m]
     return max(taken, default=0) + 1
 
 
@@ -260,6 +264,39 @@ def _dropped_parts(source: zipfile.ZipFile, package: Package) -> set[str]:
     return {name for p in parts for name in (p, rels_part_of(p)) if name in package.names}
 
 
+def _drawing_parts(ws, requests: list, drawing_number: int, chart_number: int, added: dict,
+                   overrides: list):
+    """Serialise a scratch sheet's charts and their drawing into ``added``; the drawing, or None.
+
+    Requested charts come from templates; one that cannot be templated, and any chart
+    already on the sheet, is serialised by openpyxl.
+    """
+    from workbook_tools.sheets.chart_templates import chart_part
+
+    prepared: dict[int, bytes] = {}       # chart parts made from templates, by stand-in
+    for add, kwargs in requests:
+        made = chart_part(add, ws.title, **kwargs)
+        if made is None:
+            add(ws, **kwargs)
+            continue
+        xml, stand_in = made
+        ws._charts.append(stand_in)
+        prepared[id(stand_in)] = xml
+    if not ws._charts:
+        return None
+    drawing = SpreadsheetDrawing()
+    drawing.charts = ws._charts
+    drawing._id = drawing_number
+    for offset, chart in enumerate(ws._charts):
+        chart._id = chart_number + offset
+        added[chart.path[1:]] = prepared.get(id(chart)) or tostring(chart._write())
+        overrides.append((chart.path, CHART_TYPE))
+    added[drawing.path[1:]] = tostring(drawing._write())
+    added[rels_part_of(drawing.path[1:])] = tostring(drawing._write_rels())
+    overrides.append((drawing.path, DRAWING_TYPE))
+    return drawing
+
+
 def append_sheets(package: Package, scratch, filename, *, tool_property: str, record: list[str],
                   active: str, chart_requests: dict[str, list] | None = None) -> None:
     """Write ``package`` plus every sheet of the ``scratch`` workbook to ``filename``.
@@ -283,14 +320,12 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
         :mod:`workbook_tools.sheets.chart_templates`) rather than built; charts
         already on a scratch sheet are serialised by openpyxl.
     """
-    from workbook_tools.sheets.chart_templates import chart_part
     from workbook_tools.sheets.package_writer import sheet_xml
 
     with zipfile.ZipFile(package.path) as source:
         dropped = _dropped_parts(source, package)
         names = set(package.names)
         added: dict[str, bytes] = {}
-        prepared: dict[int, bytes] = {}       # chart parts made from templates, by stand-in
         overrides: list[tuple[str, str]] = []
         sheet_number = _free(names, "xl/worksheets/sheet{}.xml")
         drawing_number = _free(names, "xl/drawings/drawing{}.xml")
@@ -299,28 +334,11 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
         for ws in scratch.worksheets:
             part = f"xl/worksheets/sheet{sheet_number}.xml"
             sheet_number += 1
-            for add, kwargs in (chart_requests or {}).get(ws.title, []):
-                made = chart_part(add, ws.title, **kwargs)
-                if made is None:     # a chart that cannot be templated is built on the scratch sheet
-                    add(ws, **kwargs)
-                    continue
-                xml, stand_in = made
-                ws._charts.append(stand_in)
-                prepared[id(stand_in)] = xml
-            drawing = None
-            if ws._charts:
-                drawing = SpreadsheetDrawing()
-                drawing.charts = ws._charts
-                drawing._id = drawing_number
+            drawing = _drawing_parts(ws, (chart_requests or {}).get(ws.title, []), drawing_number, chart_number,
+                                     added, overrides)
+            if drawing is not None:
                 drawing_number += 1
-                for chart in ws._charts:
-                    chart._id = chart_number
-                    chart_number += 1
-                    added[chart.path[1:]] = prepared.get(id(chart)) or tostring(chart._write())
-                    overrides.append((chart.path, CHART_TYPE))
-                added[drawing.path[1:]] = tostring(drawing._write())
-                added[rels_part_of(drawing.path[1:])] = tostring(drawing._write_rels())
-                overrides.append((drawing.path, DRAWING_TYPE))
+                chart_number += len(drawing.charts)
             new_sheets.append((ws, part, drawing))
         for ws in scratch.worksheets:   # every cell style in the scratch list, before it is merged
             for cell in ws._cells.values():
@@ -351,7 +369,7 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
                 data = source.read(part)
                 head = data[:data.find(b"sheetData")] if b"sheetData" in data else data
                 if _TAB_SELECTED.search(head):
-                    edited[part] = _TAB_SELECTED.sub(b"", head, count=1) + data[len(head):]
+                    edited[part] = _TAB_SELECTED.sub(b"", head) + data[len(head):]
 
         with zipfile.ZipFile(filename, "w", zipfile.ZIP_DEFLATED, allowZip64=True) as out:
             for info in source.infolist():
@@ -382,8 +400,12 @@ def _content_types(xml: bytes, overrides: list[tuple[str, str]], dropped: set[st
                             ("xml", "application/xml")):
         if extension not in defaults:
             root.insert(0, etree.Element(f"{{{CONTENT_TYPES_NS}}}Default", Extension=extension, ContentType=kind))
+    existing = {(o.get("PartName") or "").casefold(): o for o in root if o.get("PartName")}
     for part, kind in overrides:
-        etree.SubElement(root, f"{{{CONTENT_TYPES_NS}}}Override", PartName=part, ContentType=kind)
+        if part.casefold() in existing:       # a part of that name was there (unlisted by the workbook)
+            existing[part.casefold()].set("ContentType", kind)
+        else:
+            etree.SubElement(root, f"{{{CONTENT_TYPES_NS}}}Override", PartName=part, ContentType=kind)
     return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
 
 
