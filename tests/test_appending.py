@@ -318,3 +318,14 @@ def test_a_package_with_markup_compatibility_and_extensions_keeps_them(tmp_path)
     assert root.get("{http://schemas.openxmlformats.org/markup-compatibility/2006}Ignorable") == "x15"
     assert root.nsmap.get("x15") and root[-1].tag.endswith("extLst")
     assert "wbt-anova" in openpyxl.load_workbook(out).sheetnames
+
+
+def test_a_part_two_sheets_share_stays_when_one_sheet_goes():
+    from workbook_tools.sheets.package_parts import parts_to_drop, source_of
+
+    graph = {"": {"xl/workbook.xml"}, "xl/workbook.xml": {"s1", "s2", "styles"},
+             "s1": {"d1"}, "d1": {"c1", "picture"}, "c1": {"c1-colours"}, "s2": {"d2"}, "d2": {"picture"}}
+    assert parts_to_drop(graph, {"s1"}) == {"s1", "d1", "c1", "c1-colours"}
+    assert parts_to_drop(graph, {"s1", "s2"}) == {"s1", "s2", "d1", "d2", "c1", "c1-colours", "picture"}
+    assert source_of("xl/worksheets/_rels/sheet3.xml.rels") == "xl/worksheets/sheet3.xml"
+    assert source_of("_rels/.rels") == ""
