@@ -163,3 +163,17 @@ def test_dunnett_balanced_against_scipy_multivariate_t():
     coverage = mvt.cdf(np.full(3, c), lower_limit=np.full(3, -c))
     assert coverage == pytest.approx(0.95, abs=2e-4)
     assert [p.second for p in ours.comparisons.pairs] == ["T1", "T1", "T1"]
+
+
+def test_a_repeated_dunnett_analysis_takes_the_memoised_critical_value():
+    # The memoised value is the one computed afresh (checked above against scipy's multivariate t).
+    from workbook_tools.analysis import compare, distributions
+
+    frame = _random_trial(29, 5, 4)
+    compare._dunnett_critical_memo.cache_clear()
+    first = _ours(frame, compare="dunnett", control="T1").comparisons.critical_value
+    again = _ours(frame, compare="dunnett", control="T1").comparisons.critical_value
+    assert compare._dunnett_critical_memo.cache_info().hits >= 1 and again == first
+    corr = np.full((3, 3), 0.5) + 0.5 * np.eye(3)
+    df = _ours(frame, compare="dunnett", control="T1").error_term.df
+    assert first == pytest.approx(distributions.dunnett_critical_general(0.05, df, corr), rel=1e-12)

@@ -106,6 +106,23 @@ def tukey_critical(alpha: float, k: int, df: int) -> float:
     return float(distributions.studentized_range_quantile(1.0 - alpha, k, df)) / np.sqrt(2.0)
 
 
+@lru_cache(maxsize=256)
+def _dunnett_critical_memo(alpha: float, df: float, corr: tuple, alternative: str) -> float:
+    m = int(round(len(corr) ** 0.5))
+    return float(distributions.dunnett_critical_general(alpha, df, np.array(corr).reshape(m, m),
+                                                        alternative=alternative))
+
+
+def dunnett_critical(alpha: float, df: float, corr: np.ndarray, alternative: str) -> float:
+    """Dunnett's critical value for the correlation matrix ``corr`` of the statistics, memoised.
+
+    As with Tukey's, a worksheet recalculates the same design again and again; the root
+    search over the multivariate-t probability is the costliest step of a Dunnett analysis.
+    """
+    return _dunnett_critical_memo(float(alpha), float(df), tuple(np.asarray(corr, dtype=float).ravel().tolist()),
+                                  alternative)
+
+
 def _all_pairs_p_and_critical(method: str, t: np.ndarray, k: int, df: int, alpha: float) -> tuple[np.ndarray, float]:
     m = t.size
     if method == "lsd":
@@ -272,7 +289,7 @@ def _dunnett(labels, estimates, error, alpha, control, alternative) -> Compariso
 
     def p_and_critical(t):
         p = distributions.dunnett_sf_general(t, error.df, corr, alternative=alternative)
-        critical = distributions.dunnett_critical_general(alpha, error.df, corr, alternative=alternative)
+        critical = dunnett_critical(alpha, error.df, corr, alternative)
         return np.asarray(p, dtype=float), float(critical)
 
     pairs, critical_value, critical_difference, _ = _pairs(
