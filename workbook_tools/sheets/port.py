@@ -3,8 +3,10 @@
 Ranges are read from the input file with the reader's checks (merged cells,
 formulas never calculated); results go into a copy loaded by
 :func:`workbook_tools.sheets.safety.open_for_writing` and are saved atomically,
-to a new file beside the input by default or in place under the same rules as
-``workbook-tools analyze``.
+to a new file beside the input by default or in place when openpyxl, which
+rewrites every part, would drop nothing. (``workbook-tools analyze`` copies the
+user's parts instead; the job runner also writes into the job sheet, a sheet of
+the user's, so it goes through openpyxl.)
 """
 
 from __future__ import annotations
