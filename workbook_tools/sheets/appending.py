@@ -9,11 +9,14 @@ styles appended to the package's style sheet, and the entries that make them par
 of the workbook (the sheet list, relationships, content types, the custom property
 that records the tool's sheets). Two small edits touch the user's parts: the
 workbook opens on the first result sheet, and the user's sheet tabs are no longer
-marked selected (two selected tabs would open as a sheet group).
+marked selected (two selected tabs would open as a sheet group). Result sheets of
+an earlier run are dropped from the copy with the parts only they lead to (see
+:mod:`workbook_tools.sheets.package_parts`), together with the calculation chain,
+which a spreadsheet application rebuilds.
 
 `inspect` says whether a package suits this route; when it does not (a strict-schema
-workbook, a document type definition, sheets the tool wrote before, which must be
-replaced), the caller uses the openpyxl route.
+workbook, a document type definition, a style sheet without its basic lists), the
+caller uses the openpyxl route.
 
 References
 ----------
@@ -206,7 +209,7 @@ def _merge_styles(styles_xml: bytes, scratch) -> tuple[bytes, int]:
         theirs["numFmts"] = etree.Element(f"{{{MAIN}}}numFmts")
         root.insert(0, theirs["numFmts"])
     offsets = {tag: len(theirs[tag]) for tag in ("fonts", "fills", "borders")}
-    custom_ids = [int(n.get("numFmtId", "0")) for n in theirs["numFmts"]]
+    custom_ids = [int(n.get("numFmtId")) for n in theirs["numFmts"] if (n.get("numFmtId") or "").isdigit()]
     next_id = max(custom_ids + [163]) + 1
     number_ids = {}
     for fmt in mine["numFmts"]:
