@@ -32,7 +32,6 @@ import posixpath
 import re
 import zipfile
 from dataclasses import dataclass, field
-from io import BytesIO
 from pathlib import Path
 
 from lxml import etree
@@ -41,7 +40,7 @@ from openpyxl.styles.cell_style import CellStyle
 from openpyxl.styles.numbers import BUILTIN_FORMATS_MAX_SIZE, NumberFormat
 from openpyxl.xml.functions import tostring
 
-from workbook_tools.sheets.package_parts import parts_to_drop, relationship_graph, rels_part_of
+from workbook_tools.sheets.package_parts import parts_to_drop, relationship_graph, rels_part_of, resolve_target
 
 MAIN = "http://schemas.openxmlformats.org/spreadsheetml/2006/main"
 DOC_REL = "http://schemas.openxmlformats.org/officeDocument/2006/relationships"
@@ -83,15 +82,16 @@ class Package:
         return [n for n in self.sheet_names if n not in self.replaced]
 
 
+def _dump(root) -> bytes:
+    """An edited part, as XML with its declaration."""
+    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+
+
 def _parse(package: zipfile.ZipFile, name: str):
     root = etree.fromstring(package.read(name), _PARSER)
     if root.getroottree().docinfo.doctype:
         raise ValueError("document type definition")
     return root
-
-
-def _target(folder: str, target: str) -> str:
-    return target.lstrip("/") if target.startswith("/") else posixpath.normpath(posixpath.join(folder, target))
 
 
 def inspect(path, tool_property: str) -> Package | None:
@@ -116,13 +116,13 @@ def inspect(path, tool_property: str) -> Package | None:
             custom = [r.get("Target", "") for r in root_rels if r.get("Type") == DOC_REL + "/custom-properties"]
             if len(office) != 1:
                 return None
-            workbook_part = _target("", office[0])
+            workbook_part = resolve_target("", office[0])
             workbook = _parse(package, workbook_part)
             if workbook.tag != f"{{{MAIN}}}workbook" or workbook.find(f"{{{MAIN}}}sheets") is None:
                 return None
             folder = posixpath.dirname(workbook_part)
             rels = {r.get("Id"): r for r in _parse(package, rels_part_of(workbook_part))}
-            styles = [_target(folder, r.get("Target", "")) for r in rels.values()
+            styles = [resolve_target(folder, r.get("Target", "")) for r in rels.values()
                       if r.get("Type") == DOC_REL + "/styles"]
             if len(styles) != 1 or styles[0] not in names:
                 return None
@@ -136,9 +136,10 @@ def inspect(path, tool_property: str) -> Package | None:
                 rel = rels.get(sheet.get(f"{{{DOC_REL}}}id"))
                 sheet_names.append(sheet.get("name", ""))
                 if rel is not None and rel.get("TargetMode") != "External":
-                    sheet_parts.append(_target(folder, rel.get("Target", "")))
+                    sheet_parts.append(resolve_target(folder, rel.get("Target", "")))
                     part_of[sheet.get("name", "")] = sheet_parts[-1]
-            custom_part = _target("", custom[0]) if len(custom) == 1 and _target("", custom[0]) in names else None
+            custom_part = resolve_target("", custom[0]) if len(custom) == 1 else None
+            custom_part = custom_part if custom_part in names else None
             recorded = set() if custom_part is None else {
                 n.casefold() for n in _recorded(_parse(package, custom_part), tool_property)}
             replaced = {n: part_of.get(n) for n in sheet_names if n.casefold() in recorded}
@@ -232,7 +233,7 @@ def _merge_styles(styles_xml: bytes, scratch) -> tuple[bytes, int]:
             theirs[tag].set("count", str(len(theirs[tag])))
     if not len(theirs["numFmts"]):
         root.remove(theirs["numFmts"])
-    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True), xf_offset
+    return _dump(root), xf_offset
 
 
 def _custom_properties(existing: bytes | None, tool_property: str, names: list[str]) -> bytes:
@@ -245,7 +246,7 @@ def _custom_properties(existing: bytes | None, tool_property: str, names: list[s
     prop = etree.SubElement(root, f"{{{CUSTOM_NS}}}property", fmtid=CUSTOM_FMTID,
                             pid=str(max(pids + [1]) + 1), name=tool_property)
     etree.SubElement(prop, f"{{{VT_NS}}}lpwstr").text = json.dumps(list(names), ensure_ascii=False)
-    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+    return _dump(root)
 
 
 def _new_id(existing: set[str]) -> str:
@@ -367,30 +368,36 @@ def append_sheets(package: Package, scratch, filename, *, tool_property: str, re
             edited[ROOT_RELS] = _add_relationship(source.read(ROOT_RELS), PKG_REL, DOC_REL + "/custom-properties",
                                                   custom_part)
         edited[CONTENT_TYPES] = _content_types(source.read(CONTENT_TYPES), overrides, dropped)
-        for part in package.sheet_parts:
-            if part in package.names and part not in edited and part not in dropped:
-                data = source.read(part)
-                head = data[:data.find(b"sheetData")] if b"sheetData" in data else data
-                if _TAB_SELECTED.search(head):
-                    edited[part] = _TAB_SELECTED.sub(b"", head) + data[len(head):]
+        user_sheet_parts = set(package.sheet_parts) - dropped
 
         with zipfile.ZipFile(filename, "w", zipfile.ZIP_DEFLATED, allowZip64=True) as out:
             for info in source.infolist():
                 if info.filename in dropped:
                     continue
                 data = edited.pop(info.filename, None)
+                if data is None:
+                    data = source.read(info)
+                    if info.filename in user_sheet_parts:
+                        data = _unselected(data)
                 if info.compress_type not in (zipfile.ZIP_STORED, zipfile.ZIP_DEFLATED):
                     info.compress_type = zipfile.ZIP_DEFLATED   # what every spreadsheet application reads
-                out.writestr(info, source.read(info) if data is None else data)
+                out.writestr(info, data)
             for name, data in list(edited.items()) + list(added.items()):
                 out.writestr(name, data)
+
+
+def _unselected(sheet: bytes) -> bytes:
+    """A user's sheet part without its selected-tab marks (looked for before the cells only)."""
+    end = sheet.find(b"sheetData")
+    head = sheet if end < 0 else sheet[:end]
+    return _TAB_SELECTED.sub(b"", head) + sheet[len(head):] if _TAB_SELECTED.search(head) else sheet
 
 
 def _add_relationship(rels_xml: bytes, namespace: str, kind: str, target: str) -> bytes:
     root = etree.fromstring(rels_xml, _PARSER)
     rel_id = _new_id({r.get("Id") for r in root})
     etree.SubElement(root, f"{{{namespace}}}Relationship", Id=rel_id, Type=kind, Target=target)
-    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+    return _dump(root)
 
 
 def _content_types(xml: bytes, overrides: list[tuple[str, str]], dropped: set[str]) -> bytes:
@@ -409,7 +416,7 @@ def _content_types(xml: bytes, overrides: list[tuple[str, str]], dropped: set[st
             existing[part.casefold()].set("ContentType", kind)
         else:
             etree.SubElement(root, f"{{{CONTENT_TYPES_NS}}}Override", PartName=part, ContentType=kind)
-    return etree.tostring(root, xml_declaration=True, encoding="UTF-8", standalone=True)
+    return _dump(root)
 
 
 def _drop_sheets(workbook, rels, folder: str, package: Package, dropped: set[str]) -> None:
@@ -419,7 +426,7 @@ def _drop_sheets(workbook, rels, folder: str, package: Package, dropped: set[str
     others' sheet positions (``localSheetId``) shift to the sheets' new positions.
     """
     for rel in list(rels):
-        if rel.get("TargetMode") != "External" and _target(folder, rel.get("Target", "")) in dropped:
+        if rel.get("TargetMode") != "External" and resolve_target(folder, rel.get("Target", "")) in dropped:
             rels.remove(rel)
     sheet_list = workbook.find(f"{{{MAIN}}}sheets")
     gone = []
@@ -468,12 +475,4 @@ def _workbook_edits(source, package: Package, sheets: list[tuple[str, str]], act
     view.set("activeTab", str(position))
     if int(view.get("firstSheet", "0") or 0) > position:
         view.set("firstSheet", str(position))
-    dump = {"xml_declaration": True, "encoding": "UTF-8", "standalone": True}
-    return {package.workbook_part: etree.tostring(workbook, **dump), rels_part: etree.tostring(rels, **dump)}
-
-
-def write_to_bytes(package: Package, scratch, **options) -> bytes:
-    """`append_sheets` into memory (for tests)."""
-    buffer = BytesIO()
-    append_sheets(package, scratch, buffer, **options)
-    return buffer.getvalue()
+    return {package.workbook_part: _dump(workbook), rels_part: _dump(rels)}

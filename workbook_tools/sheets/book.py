@@ -219,11 +219,11 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     input_name, run_options = Path(input_path).name, run_options or {}
     if package is not None:
         names, audit_name = _result_sheet_names(analyses, prefix, set(package.user_sheets))
+        record = [n for *_, n in names] + [audit_name]
         scratch = openpyxl.Workbook()
         scratch.remove(scratch.active)
         requests: dict[str, list] = {}
         first = _fill_result_sheets(scratch, names, audit_name, analyses, input_name, stamp, run_options, requests)
-        record = [n for *_, n in names] + [audit_name]
         safety.atomic_write(target, lambda temporary: appending.append_sheets(
             package, scratch, temporary, tool_property=safety.TOOL_PROPERTY, record=record, active=first,
             chart_requests=requests))
@@ -233,9 +233,10 @@ def write_analyses(input_path, analyses: list[ResponseAnalysis], *, out=None, in
     previous = set(safety.tool_sheet_names(workbook))
     user_sheets = {ws.title for ws in workbook.worksheets} - previous
     names, audit_name = _result_sheet_names(analyses, prefix, user_sheets)
-    safety.replace_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
+    record = [n for *_, n in names] + [audit_name]
+    safety.replace_tool_sheets(workbook, record)
     first = _fill_result_sheets(workbook, names, audit_name, analyses, input_name, stamp, run_options)
-    safety.record_tool_sheets(workbook, [n for *_, n in names] + [audit_name])
+    safety.record_tool_sheets(workbook, record)
     workbook.active = workbook.worksheets.index(workbook[first])
     safety.atomic_save(workbook, target)
     return target

@@ -21,6 +21,8 @@ from openpyxl.chart import ScatterChart
 from openpyxl.utils import column_index_from_string, get_column_letter, quote_sheetname
 from openpyxl.xml.functions import tostring
 
+from workbook_tools.sheets import charts
+
 SENTINEL_SHEET = "WbtSentinel"
 FIRST_SENTINEL_COLUMN = 16001      # columns WQK onwards: far beyond any result table
 FIRST_SENTINEL_ROW = 900_001       # openpyxl's references stop at row 1,000,000
@@ -65,13 +67,6 @@ def _template(add, kwargs: dict) -> _Template | None:
     return _TEMPLATES[key]
 
 
-def _anchor_text(anchor) -> str:
-    if isinstance(anchor, str):
-        return anchor
-    row, col = anchor
-    return f"{get_column_letter(col)}{row}"
-
-
 def chart_part(add, sheet_title: str, **kwargs):
     """The chart part ``add(ws, **kwargs)`` would give on the sheet ``sheet_title``, and its anchor.
 
@@ -94,22 +89,19 @@ def chart_part(add, sheet_title: str, **kwargs):
     template = _template(add, kwargs)
     if template is None:
         return None
-    real = {sentinel: kwargs[name] for sentinel, name in template.columns.items()}
+    real_cols = {sentinel: kwargs[name] for sentinel, name in template.columns.items()}
     real_rows = {sentinel: kwargs[name] for sentinel, name in template.rows.items()}
     sheet = quote_sheetname(sheet_title)
 
+    def cell(letters: str, row: str) -> str:
+        return f"${get_column_letter(real_cols[column_index_from_string(letters)])}${real_rows[int(row)]}"
+
     def reference(match) -> str:
-        first_col = real[column_index_from_string(match.group(1))]
-        first_row = real_rows[int(match.group(2))]
-        if match.group(3) is None:
-            return escape(f"{sheet}!${get_column_letter(first_col)}${first_row}")
-        last_col = real[column_index_from_string(match.group(3))]
-        last_row = real_rows[int(match.group(4))]
-        if (first_col, first_row) == (last_col, last_row):
-            return escape(f"{sheet}!${get_column_letter(first_col)}${first_row}")
-        return escape(f"{sheet}!${get_column_letter(first_col)}${first_row}:${get_column_letter(last_col)}${last_row}")
+        first = cell(match.group(1), match.group(2))
+        last = first if match.group(3) is None else cell(match.group(3), match.group(4))
+        return escape(f"{sheet}!{first}" if last == first else f"{sheet}!{first}:{last}")   # as openpyxl writes it
 
     stand_in = ScatterChart()
-    stand_in.anchor = _anchor_text(kwargs["anchor"])
+    stand_in.anchor = charts._anchor_cell(kwargs["anchor"])
     stand_in.width, stand_in.height = template.width, template.height
     return _REFERENCE.sub(reference, template.xml).encode("utf-8"), stand_in

@@ -25,6 +25,11 @@ def source_of(rels_part: str) -> str:
     return posixpath.join(owner_folder, base[: -len(".rels")]) if base != ".rels" else ""
 
 
+def resolve_target(folder: str, target: str) -> str:
+    """The part a relationship target names, from the folder of the part that holds the relationship."""
+    return target.lstrip("/") if target.startswith("/") else posixpath.normpath(posixpath.join(folder, target))
+
+
 def relationship_graph(package: zipfile.ZipFile, parser) -> dict[str, set[str]]:
     """Part -> the internal parts its relationships point at (``""`` is the package root)."""
     graph: dict[str, set[str]] = {}
@@ -38,9 +43,7 @@ def relationship_graph(package: zipfile.ZipFile, parser) -> dict[str, set[str]]:
             target = rel.get("Target") or ""
             if rel.get("TargetMode") == "External" or not target:
                 continue
-            resolved = target.lstrip("/") if target.startswith("/") else posixpath.normpath(
-                posixpath.join(folder, target))
-            targets.add(resolved)
+            targets.add(resolve_target(folder, target))
     return graph
 
 

@@ -14,6 +14,7 @@ compare the two, canonicalised, on generated sheets).
 from __future__ import annotations
 
 import datetime
+from xml.sax.saxutils import escape
 from zipfile import ZIP_DEFLATED, ZipFile
 
 from openpyxl.cell.cell import Cell
@@ -31,17 +32,7 @@ from openpyxl.xml.functions import tostring
 PLAIN_TYPES = {"n", "s", "b", "inlineStr"}
 
 
-def _escape(text: str) -> str:
-    """Text as XML character data, escaped as lxml escapes it (a carriage return kept as a reference)."""
-    if "&" in text:
-        text = text.replace("&", "&amp;")
-    if "<" in text:
-        text = text.replace("<", "&lt;")
-    if ">" in text:
-        text = text.replace(">", "&gt;")
-    if "\r" in text:
-        text = text.replace("\r", "&#13;")
-    return text
+_CARRIAGE_RETURN = {"\r": "&#13;"}   # lxml keeps a carriage return in text as a character reference
 
 
 def plain_cells(ws) -> bool:
@@ -97,7 +88,7 @@ def sheet_data_xml(ws, style_offset: int = 0) -> str:
                 parts.append(f'{head} t="{"inlineStr" if kind == "s" else kind}"/>')
             elif kind == "s":
                 space = ' xml:space="preserve"' if value != value.strip() else ""
-                parts.append(f'{head} t="inlineStr"><is><t{space}>{_escape(value)}</t></is></c>')
+                parts.append(f'{head} t="inlineStr"><is><t{space}>{escape(value, _CARRIAGE_RETURN)}</t></is></c>')
             else:
                 parts.append(f'{head} t="{kind}"><v>{safe_string(value)}</v></c>')
         parts.append("</row>")

@@ -182,9 +182,10 @@ def _read_grid_fast(path: Path, range_text, read_only) -> "_Grid | None":
             return None
         large = package.getinfo(part).file_size > LARGE_SHEET_BYTES
     rng = CellRange(sheet, *bounds)
-    if not large and (rng.max_row - rng.min_row + 1) * (rng.max_col - rng.min_col + 1) > limits.active().max_cells:
+    n_rows, n_cols = rng.max_row - rng.min_row + 1, rng.max_col - rng.min_col + 1
+    if not large and n_rows * n_cols > limits.active().max_cells:
         return None
-    limits.check_cells(rng.sheet, rng.a1, rng.max_row - rng.min_row + 1, rng.max_col - rng.min_col + 1)
+    limits.check_cells(rng.sheet, rng.a1, n_rows, n_cols)
     try:
         read = fast_grid.read_cells(path, rng)
     except LookupError:
@@ -591,18 +592,18 @@ def _read_long(grid: _Grid, block, treatment, responses, **options) -> list[Tria
     used = (b_col, t_col, *r_cols)
     blocks = _column_labels(grid, b_col, "block label")
     treatments = _column_labels(grid, t_col, "treatment label")
-    if None not in blocks and None not in treatments:   # every row labelled (the usual case, checked in C)
-        return [_long_table(grid, headers[j], j, range(len(blocks)), blocks, treatments, **options) for j in r_cols]
-    kept = []
-    for n, (b, t) in enumerate(zip(blocks, treatments)):
-        if b is None or t is None:
-            i = n + 1
-            if all(_is_blank(grid.value(i, k)[0]) for k in used):
-                continue  # an empty row (e.g. below the data in an oversized range)
-            k, what = (b_col, "block") if b is None else (t_col, "treatment")
-            grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
-                      "or leave the row out of the range.", i, k)
-        kept.append(n)
+    kept = range(len(blocks))   # every row, when every row is labelled (the usual case, checked in C)
+    if None in blocks or None in treatments:
+        kept = []
+        for n, (b, t) in enumerate(zip(blocks, treatments)):
+            if b is None or t is None:
+                i = n + 1
+                if all(_is_blank(grid.value(i, k)[0]) for k in used):
+                    continue  # an empty row (e.g. below the data in an oversized range)
+                k, what = (b_col, "block") if b is None else (t_col, "treatment")
+                grid.fail(f"This row holds data but no {what} label. Fill in the {what}, "
+                          "or leave the row out of the range.", i, k)
+            kept.append(n)
     return [_long_table(grid, headers[j], j, kept, blocks, treatments, **options) for j in r_cols]
 
 

@@ -54,6 +54,7 @@ from defusedxml.ElementTree import fromstring
 from openpyxl.packaging.custom import StringProperty
 
 from workbook_tools.analysis.errors import TrialInputError
+from workbook_tools.sheets.package_parts import rels_part_of, resolve_target
 
 TOOL_PROPERTY = "workbook-tools sheets"
 """Name of the custom document property listing the sheets the tool made."""
@@ -143,15 +144,13 @@ def _xml(package: zipfile.ZipFile, name: str):
 
 def _rels_of(package: zipfile.ZipFile, part: str) -> list[tuple[str, str]]:
     """(relationship type suffix, absolute target part) for each internal relationship of ``part``."""
-    folder, base = posixpath.split(part)
-    root = _xml(package, posixpath.join(folder, "_rels", base + ".rels"))
+    folder = posixpath.dirname(part)
+    root = _xml(package, rels_part_of(part))
     found = []
     for rel in [] if root is None else root:
         if rel.get("TargetMode") == "External" or not rel.get("Target"):
             continue
-        target = rel.get("Target")
-        target = target.lstrip("/") if target.startswith("/") else posixpath.normpath(posixpath.join(folder, target))
-        found.append((rel.get("Type", "").rsplit("/", 1)[-1], target))
+        found.append((rel.get("Type", "").rsplit("/", 1)[-1], resolve_target(folder, rel.get("Target"))))
     return found
 
 
